@@ -1,0 +1,204 @@
+/*
+ * timefmt.c — RFC 3339 parsing and formatting (see timefmt.h).
+ *
+ * Calendar arithmetic uses the days-from-civil algorithm for the proleptic
+ * Gregorian calendar (H. Hinnant, "chrono-compatible low-level date
+ * algorithms"), which is exact for every year we accept.
+ */
+#include "timefmt.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+static int64_t days_from_civil(int64_t y, unsigned m, unsigned d)
+{
+    y -= m <= 2;
+    int64_t era = (y >= 0 ? y : y - 399) / 400;
+    unsigned yoe = (unsigned)(y - era * 400);
+    unsigned doy = (153 * (m + (m > 2 ? -3 : 9)) + 2) / 5 + d - 1;
+    unsigned doe = yoe * 365 + yoe / 4 - yoe / 100 + doy;
+    return era * 146097 + (int64_t)doe - 719468;
+}
+
+static void civil_from_days(int64_t z, int64_t *y, unsigned *m, unsigned *d)
+{
+    z += 719468;
+    int64_t era = (z >= 0 ? z : z - 146096) / 146097;
+    unsigned doe = (unsigned)(z - era * 146097);
+    unsigned yoe = (doe - doe / 1460 + doe / 36524 - doe / 146096) / 365;
+    unsigned doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    unsigned mp = (5 * doy + 2) / 153;
+    *d = doy - (153 * mp + 2) / 5 + 1;
+    *m = mp < 10 ? mp + 3 : mp - 9;
+    *y = (int64_t)yoe + era * 400 + (*m <= 2);
+}
+
+static int is_leap(int64_t y)
+{
+    return (y % 4 == 0 && y % 100 != 0) || y % 400 == 0;
+}
+
+static unsigned days_in_month(int64_t y, unsigned m)
+{
+    static const unsigned dm[12] = {31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31};
+    return m == 2 && is_leap(y) ? 29 : dm[m - 1];
+}
+
+/* Reads exactly k digits at s[*i]; returns -1 if any is not a digit. */
+static int digits(const char *s, size_t n, size_t *i, int k)
+{
+    int v = 0;
+    for (int j = 0; j < k; j++) {
+        if (*i >= n || s[*i] < '0' || s[*i] > '9')
+            return -1;
+        v = v * 10 + (s[*i] - '0');
+        (*i)++;
+    }
+    return v;
+}
+
+static int expect(const char *s, size_t n, size_t *i, char c)
+{
+    if (*i >= n || s[*i] != c)
+        return -1;
+    (*i)++;
+    return 0;
+}
+
+int time_parse_rfc3339(const char *s, size_t n, int64_t *us)
+{
+    size_t i = 0;
+    int y = digits(s, n, &i, 4);
+    if (y < 0 || expect(s, n, &i, '-'))
+        return -1;
+    int mo = digits(s, n, &i, 2);
+    if (mo < 1 || mo > 12 || expect(s, n, &i, '-'))
+        return -1;
+    int d = digits(s, n, &i, 2);
+    if (d < 1 || (unsigned)d > days_in_month(y, (unsigned)mo))
+        return -1;
+    if (i >= n || (s[i] != 'T' && s[i] != 't' && s[i] != ' '))
+        return -1;
+    i++;
+    int h = digits(s, n, &i, 2);
+    if (h < 0 || h > 23 || expect(s, n, &i, ':'))
+        return -1;
+    int mi = digits(s, n, &i, 2);
+    if (mi < 0 || mi > 59 || expect(s, n, &i, ':'))
+        return -1;
+    int se = digits(s, n, &i, 2);
+    if (se < 0 || se > 60)
+        return -1;
+    int64_t frac = 0;
+    if (i < n && s[i] == '.') {
+        i++;
+        int nd = 0;
+        while (i < n && s[i] >= '0' && s[i] <= '9') {
+            if (nd < 6)
+                frac = frac * 10 + (s[i] - '0');
+            nd++;
+            i++;
+        }
+        if (nd == 0)
+            return -1;
+        for (; nd < 6; nd++)
+            frac *= 10;
+    }
+    int64_t off = 0;
+    if (i < n && (s[i] == 'Z' || s[i] == 'z')) {
+        i++;
+    } else if (i < n && (s[i] == '+' || s[i] == '-')) {
+        int sign = s[i] == '-' ? -1 : 1;
+        i++;
+        int oh = digits(s, n, &i, 2);
+        if (oh < 0 || oh > 23 || expect(s, n, &i, ':'))
+            return -1;
+        int om = digits(s, n, &i, 2);
+        if (om < 0 || om > 59)
+            return -1;
+        off = sign * ((int64_t)oh * 3600 + om * 60);
+    } else {
+        return -1;
+    }
+    if (i != n)
+        return -1;
+    int64_t secs = days_from_civil(y, (unsigned)mo, (unsigned)d) * 86400 + (int64_t)h * 3600 +
+                   (int64_t)mi * 60 + se - off;
+    int64_t t = secs * US_PER_SEC + frac;
+    if (t < TIME_MIN_US || t > TIME_MAX_US)
+        return -1;
+    *us = t;
+    return 0;
+}
+
+int time_from_epoch_ms(double ms, int64_t *us)
+{
+    if (!isfinite(ms) || ms != floor(ms))
+        return -1;
+    if (ms < (double)(TIME_MIN_US / 1000) || ms > (double)(TIME_MAX_US / 1000))
+        return -1;
+    *us = (int64_t)ms * 1000;
+    return 0;
+}
+
+int64_t time_floor(int64_t us, int64_t step)
+{
+    int64_t q = us / step;
+    if (us % step != 0 && us < 0)
+        q--;
+    return q * step;
+}
+
+void time_format(int64_t us, char *buf, size_t n)
+{
+    int64_t secs = time_floor(us, US_PER_SEC) / US_PER_SEC;
+    int64_t frac = us - secs * US_PER_SEC;
+    int64_t days = time_floor(secs, 86400) / 86400;
+    int64_t sod = secs - days * 86400;
+    int64_t y;
+    unsigned m, d;
+    civil_from_days(days, &y, &m, &d);
+    int len = snprintf(buf, n, "%04lld-%02u-%02uT%02d:%02d:%02d", (long long)y, m, d,
+                       (int)(sod / 3600), (int)(sod / 60 % 60), (int)(sod % 60));
+    if (frac && len > 0 && (size_t)len < n) {
+        char f[24];
+        snprintf(f, sizeof f, "%06lld", (long long)frac);
+        int k = 6;
+        while (k > 1 && f[k - 1] == '0')
+            k--;
+        f[k] = '\0';
+        len += snprintf(buf + len, n - (size_t)len, ".%s", f);
+    }
+    if (len > 0 && (size_t)len < n)
+        snprintf(buf + len, n - (size_t)len, "Z");
+}
+
+int duration_parse(const char *s, int64_t *us)
+{
+    if (!s || !*s)
+        return -1;
+    char *end;
+    double v = strtod(s, &end);
+    if (end == s || !isfinite(v) || v <= 0)
+        return -1;
+    double unit;
+    if (!strcmp(end, "s"))
+        unit = 1e6;
+    else if (!strcmp(end, "m") || !strcmp(end, "min"))
+        unit = 60e6;
+    else if (!strcmp(end, "h") || !*end)
+        unit = 3600e6;
+    else if (!strcmp(end, "d"))
+        unit = 86400e6;
+    else if (!strcmp(end, "w"))
+        unit = 7 * 86400e6;
+    else
+        return -1;
+    double r = v * unit;
+    if (r < 1 || r > 1e17)
+        return -1;
+    *us = (int64_t)llround(r);
+    return 0;
+}
