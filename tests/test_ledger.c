@@ -1,0 +1,387 @@
+/*
+ * test_ledger.c — one test per join rule of DESIGN.md, and the incremental
+ * tallies against a naive two-pass recomputation.
+ *
+ * Expected values are worked out by hand from the rules in DESIGN.md ("Join
+ * rules"); each test says how. The two-pass check recomputes means and
+ * variances from the per-unit values in long double (the textbook two-pass
+ * formula, which shares no code with the Welford updates).
+ */
+#include <gsl/gsl_errno.h>
+#include <gsl/gsl_rng.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "helpers.h"
+#include "config.h"
+#include "event.h"
+#include "ledger.h"
+#include "report.h"
+#include "timefmt.h"
+
+static const char CFG[] =
+    "{\"experiment\":\"bakery-banner\","
+    " \"arms\":[{\"name\":\"control\",\"weight\":1},{\"name\":\"treatment\",\"weight\":1}],"
+    " \"window\":{\"start\":\"2026-11-02T00:00:00Z\",\"end\":\"2026-11-30T00:00:00Z\"},"
+    " \"metrics\":["
+    "  {\"name\":\"spend\",\"type\":\"mean\",\"event\":\"spend\",\"attribution_hours\":24},"
+    "  {\"name\":\"bought\",\"type\":\"binary\",\"event\":\"spend\"},"
+    "  {\"name\":\"spend_per_visit\",\"type\":\"ratio\",\"numerator\":\"spend\",\"denominator\":\"visit\"},"
+    "  {\"name\":\"spend_capped\",\"type\":\"mean\",\"event\":\"spend\",\"cap\":10}],"
+    " \"covariate\":{\"pre_days\":7}}";
+
+enum { M_SPEND, M_BOUGHT, M_RATIO, M_CAPPED };
+enum { CTL, TRT };
+
+struct fx {
+    struct config cfg;
+    struct layout lay;
+    struct decoder *dec;
+    struct ledger *l;
+};
+
+static int setup(void **state)
+{
+    struct fx *f = calloc(1, sizeof *f);
+    struct err e;
+    assert_int_equal(config_parse(CFG, strlen(CFG), "test", &f->cfg, &e), 0);
+    assert_int_equal(layout_init(&f->lay, &f->cfg, US_PER_HOUR, US_PER_DAY, &e), 0);
+    f->dec = decoder_new();
+    f->l = ledger_new(&f->lay);
+    *state = f;
+    return 0;
+}
+
+static int teardown(void **state)
+{
+    struct fx *f = *state;
+    ledger_free(f->l);
+    decoder_free(f->dec);
+    layout_release(&f->lay);
+    config_release(&f->cfg);
+    free(f);
+    return 0;
+}
+
+/* Feeds one event line; asserts it decodes. */
+static int feed(struct fx *f, const char *line)
+{
+    struct event ev;
+    enum reject r = decoder_decode(f->dec, line, strlen(line), &ev);
+    if (r != REJ_NONE)
+        fail_msg("line did not decode (%s): %s", reject_name(r), line);
+    return ledger_apply(f->l, &ev);
+}
+
+static void assign(struct fx *f, const char *unit, const char *arm, const char *time)
+{
+    char b[512];
+    snprintf(b, sizeof b,
+             "{\"kind\":\"assign\",\"time\":\"%s\",\"unit\":\"%s\",\"exp\":\"bakery-banner\",\"arm\":\"%s\"}",
+             time, unit, arm);
+    assert_int_equal(feed(f, b), 0);
+}
+
+static void outcome(struct fx *f, const char *unit, const char *metric, double v, const char *time)
+{
+    char b[512];
+    snprintf(b, sizeof b,
+             "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"%s\",\"metric\":\"%s\",\"value\":%.17g}",
+             time, unit, metric, v);
+    assert_int_equal(feed(f, b), 0);
+}
+
+static const struct moments *M(struct fx *f, int metric, int arm)
+{
+    return ledger_moments(f->l, metric, arm);
+}
+
+/* Rule: exposure is the earliest in-window assignment, whatever the arrival
+ * order. The unit is assigned at 10:00 and (arriving later) at 09:00; an
+ * outcome at 09:30 is then inside the window [09:00, 09:00+24h). */
+static void test_ledger__exposure_is_earliest_assignment(void **state)
+{
+    struct fx *f = *state;
+    assign(f, "u1", "treatment", "2026-11-03T10:00:00Z");
+    outcome(f, "u1", "spend", 4.25, "2026-11-03T09:30:00Z");
+    assign(f, "u1", "treatment", "2026-11-03T09:00:00Z");
+    ledger_finish(f->l);
+    assert_int_equal(ledger_units(f->l, TRT), 1);
+    assert_rel_close(M(f, M_SPEND, TRT)->mean[0], 4.25, 0);
+    assert_rel_close(M(f, M_SPEND, TRT)->mean[1], 0, 0); /* not pre-period any more */
+}
+
+/* Rule: assignments outside [window.start, window.end) are counted in
+ * outside_window and otherwise ignored; the end is excluded. */
+static void test_ledger__outside_window(void **state)
+{
+    struct fx *f = *state;
+    assign(f, "u1", "control", "2026-11-01T23:59:59Z");
+    assign(f, "u2", "control", "2026-11-30T00:00:00Z");
+    assign(f, "u3", "control", "2026-11-29T23:59:59.999Z");
+    ledger_finish(f->l);
+    assert_int_equal(ledger_counters(f->l)->outside_window, 2);
+    assert_int_equal(ledger_units(f->l, CTL), 1);
+}
+
+/* Rule: a unit named in two arms is a multi-arm unit, left out of units and
+ * every tally, even after it had been counted. */
+static void test_ledger__multi_arm_units_left_out(void **state)
+{
+    struct fx *f = *state;
+    assign(f, "u1", "control", "2026-11-03T10:00:00Z");
+    outcome(f, "u1", "spend", 7, "2026-11-03T11:00:00Z");
+    assign(f, "u2", "control", "2026-11-03T10:00:00Z");
+    assign(f, "u1", "treatment", "2026-11-03T12:00:00Z");
+    assign(f, "u1", "control", "2026-11-03T13:00:00Z");
+    ledger_finish(f->l);
+    const struct counters *c = ledger_counters(f->l);
+    assert_int_equal(c->multi_arm_units, 1);
+    assert_int_equal(c->multi_by_arm[CTL], 1);
+    assert_int_equal(c->multi_by_arm[TRT], 1);
+    assert_int_equal(ledger_units(f->l, CTL), 1);
+    assert_int_equal(ledger_units(f->l, TRT), 0);
+    assert_rel_close(M(f, M_SPEND, CTL)->n, 1, 0);
+    assert_rel_close(M(f, M_SPEND, CTL)->mean[0], 0, 0); /* u2 only, no outcome */
+}
+
+/* Rule: an outcome counts when exposure <= time < exposure + attribution.
+ * spend has a 24 h window: 10:00 the next day is out, one µs before is in;
+ * bought has no window, so both count for it. */
+static void test_ledger__attribution_window(void **state)
+{
+    struct fx *f = *state;
+    assign(f, "u1", "treatment", "2026-11-03T10:00:00Z");
+    outcome(f, "u1", "spend", 2, "2026-11-03T10:00:00Z");
+    outcome(f, "u1", "spend", 3, "2026-11-04T09:59:59.999999Z");
+    outcome(f, "u1", "spend", 100, "2026-11-04T10:00:00Z");
+    ledger_finish(f->l);
+    assert_rel_close(M(f, M_SPEND, TRT)->mean[0], 5, 0);
+    assert_rel_close(M(f, M_RATIO, TRT)->mean[0], 105, 0); /* ratio: no window */
+}
+
+/* Rule: per-unit values. mean sums; binary is 1 when any counted value > 0;
+ * ratio keeps numerator and denominator sums; exposed units without
+ * outcomes are 0 and part of n. Three control units:
+ *   u1: spend 0 and -2 → spend −2, bought 0, visits 2
+ *   u2: spend 0.5      → spend 0.5, bought 1, visits 0
+ *   u3: nothing        → 0, 0, 0
+ * means: spend (−2+0.5+0)/3 = −0.5, bought 1/3, ratio (−1.5)/2 = −0.75. */
+static void test_ledger__per_unit_values(void **state)
+{
+    struct fx *f = *state;
+    assign(f, "u1", "control", "2026-11-03T10:00:00Z");
+    assign(f, "u2", "control", "2026-11-03T10:00:00Z");
+    assign(f, "u3", "control", "2026-11-03T10:00:00Z");
+    outcome(f, "u1", "spend", 0, "2026-11-03T10:01:00Z");
+    outcome(f, "u1", "spend", -2, "2026-11-03T10:02:00Z");
+    outcome(f, "u1", "visit", 1, "2026-11-03T10:03:00Z");
+    outcome(f, "u1", "visit", 1, "2026-11-03T10:04:00Z");
+    outcome(f, "u2", "spend", 0.5, "2026-11-03T10:05:00Z");
+    ledger_finish(f->l);
+    assert_rel_close(M(f, M_SPEND, CTL)->n, 3, 0);
+    assert_rel_close(M(f, M_SPEND, CTL)->mean[0], -0.5, 1e-15);
+    assert_rel_close(M(f, M_BOUGHT, CTL)->mean[0], 1.0 / 3, 1e-15);
+    const struct moments *r = M(f, M_RATIO, CTL);
+    assert_rel_close(r->mean[0] / r->mean[1], -0.75, 1e-15);
+}
+
+/* Rule: cap applies to the per-unit sum: 6 + 7 = 13 is capped to 10. */
+static void test_ledger__cap(void **state)
+{
+    struct fx *f = *state;
+    assign(f, "u1", "control", "2026-11-03T10:00:00Z");
+    outcome(f, "u1", "spend", 6, "2026-11-03T11:00:00Z");
+    outcome(f, "u1", "spend", 7, "2026-11-03T12:00:00Z");
+    ledger_finish(f->l);
+    assert_rel_close(M(f, M_SPEND, CTL)->mean[0], 13, 0);
+    assert_rel_close(M(f, M_CAPPED, CTL)->mean[0], 10, 0);
+}
+
+/* Rule: the covariate is the unit's sum of the same metric in
+ * [exposure − pre_days, exposure): 7 days before exposure is in, one µs
+ * earlier is out, the exposure instant belongs to the window. */
+static void test_ledger__pre_period_covariate(void **state)
+{
+    struct fx *f = *state;
+    outcome(f, "u1", "spend", 1, "2026-11-03T10:00:00Z");        /* exactly 7 d before */
+    outcome(f, "u1", "spend", 50, "2026-11-03T09:59:59.999999Z"); /* too early */
+    outcome(f, "u1", "spend", 2, "2026-11-10T09:59:59Z");
+    assign(f, "u1", "treatment", "2026-11-10T10:00:00Z");
+    outcome(f, "u1", "spend", 4, "2026-11-10T10:00:00Z");
+    ledger_finish(f->l);
+    assert_rel_close(M(f, M_SPEND, TRT)->mean[0], 4, 0);
+    assert_rel_close(M(f, M_SPEND, TRT)->mean[1], 3, 0);
+    assert_rel_close(M(f, M_BOUGHT, TRT)->mean[1], 1, 0);
+}
+
+/* Rule: a repeated id is a duplicate, counted once and in duplicates. */
+static void test_ledger__duplicates_by_id(void **state)
+{
+    struct fx *f = *state;
+    const char *a = "{\"kind\":\"assign\",\"time\":\"2026-11-03T10:00:00Z\",\"unit\":\"u1\","
+                    "\"exp\":\"bakery-banner\",\"arm\":\"control\",\"id\":\"a1\"}";
+    const char *o = "{\"kind\":\"outcome\",\"time\":\"2026-11-03T11:00:00Z\",\"unit\":\"u1\","
+                    "\"metric\":\"spend\",\"value\":5,\"id\":\"o1\"}";
+    assert_int_equal(feed(f, a), 0);
+    assert_int_equal(feed(f, o), 0);
+    assert_int_equal(feed(f, o), 0);
+    assert_int_equal(feed(f, a), 0);
+    ledger_finish(f->l);
+    assert_int_equal(ledger_counters(f->l)->duplicates, 2);
+    assert_int_equal(ledger_counters(f->l)->dup_by_arm[CTL], 2);
+    assert_rel_close(M(f, M_SPEND, CTL)->mean[0], 5, 0);
+    assert_int_equal(ledger_counters(f->l)->lines, 4);
+    assert_int_equal(ledger_counters(f->l)->accepted, 4);
+}
+
+/* Rule: the final summary does not depend on arrival order within the
+ * lateness bound (1 h here). The same six events in two orders, each at most
+ * 50 minutes out of order, give the same tallies; an assignment more than an
+ * hour behind the latest event is counted in late_assignments. */
+static void test_ledger__order_within_lateness(void **state)
+{
+    struct fx *f = *state;
+    static const char *const ev[] = {
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-03T09:40:00Z\",\"unit\":\"u1\",\"metric\":\"spend\",\"value\":1.5}",
+        "{\"kind\":\"assign\",\"time\":\"2026-11-03T10:00:00Z\",\"unit\":\"u1\",\"exp\":\"bakery-banner\",\"arm\":\"control\"}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-03T10:10:00Z\",\"unit\":\"u1\",\"metric\":\"spend\",\"value\":2.5}",
+        "{\"kind\":\"assign\",\"time\":\"2026-11-03T10:20:00Z\",\"unit\":\"u2\",\"exp\":\"bakery-banner\",\"arm\":\"treatment\"}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-03T10:30:00Z\",\"unit\":\"u2\",\"metric\":\"spend\",\"value\":8}",
+        "{\"kind\":\"assign\",\"time\":\"2026-11-03T09:45:00Z\",\"unit\":\"u1\",\"exp\":\"bakery-banner\",\"arm\":\"control\"}",
+    };
+    static const int order_b[] = {4, 2, 0, 5, 3, 1};
+    struct ledger *a = f->l, *b = ledger_new(&f->lay);
+    struct event e;
+    for (int i = 0; i < 6; i++) {
+        assert_int_equal(decoder_decode(f->dec, ev[i], strlen(ev[i]), &e), REJ_NONE);
+        ledger_apply(a, &e);
+        assert_int_equal(decoder_decode(f->dec, ev[order_b[i]], strlen(ev[order_b[i]]), &e), REJ_NONE);
+        ledger_apply(b, &e);
+    }
+    ledger_finish(a);
+    ledger_finish(b);
+    for (int m = 0; m < 4; m++)
+        for (int arm = 0; arm < 2; arm++) {
+            assert_rel_close(ledger_moments(b, m, arm)->n, ledger_moments(a, m, arm)->n, 0);
+            assert_rel_close(ledger_moments(b, m, arm)->mean[0], ledger_moments(a, m, arm)->mean[0], 1e-15);
+            assert_rel_close(ledger_moments(b, m, arm)->mean[1], ledger_moments(a, m, arm)->mean[1], 1e-15);
+        }
+    /* exposure 09:45: the 10:10 outcome is in the window, the 09:40 one is pre-period */
+    assert_rel_close(ledger_moments(a, M_SPEND, CTL)->mean[0], 2.5, 0);
+    assert_rel_close(ledger_moments(a, M_SPEND, CTL)->mean[1], 1.5, 0);
+    assert_int_equal(ledger_counters(a)->late_assignments, 0);
+    ledger_free(b);
+    /* an assignment 2 hours behind the latest event is late */
+    assign(f, "u3", "control", "2026-11-03T08:00:00Z");
+    assert_int_equal(ledger_counters(a)->late_assignments, 1);
+}
+
+/* Outcomes after window.start of units never exposed are orphans; outcomes
+ * of unknown metrics are ignored, not stored. */
+static void test_ledger__orphans_and_ignored(void **state)
+{
+    struct fx *f = *state;
+    outcome(f, "ghost", "spend", 3, "2026-11-05T10:00:00Z");
+    outcome(f, "ghost", "spend", 3, "2026-10-20T10:00:00Z"); /* before the window: not an orphan */
+    outcome(f, "u1", "page_view", 1, "2026-11-05T10:00:00Z");
+    ledger_finish(f->l);
+    assert_int_equal(ledger_counters(f->l)->orphan_outcomes, 1);
+    assert_int_equal(ledger_counters(f->l)->ignored_outcomes, 1);
+    assert_int_equal(ledger_units(f->l, CTL) + ledger_units(f->l, TRT), 0);
+}
+
+/* The incremental tallies equal a two-pass recomputation from the units'
+ * values: random assignments and outcomes (values around 1e9 for one unit
+ * group, to exercise cancellation), several outcomes per unit. */
+struct pass {
+    const struct layout *lay;
+    long double sum[CONFIG_MAX_METRICS][2][MOM_MAXV];
+    long double n[2];
+    int phase;
+    long double mean[CONFIG_MAX_METRICS][2][MOM_MAXV];
+    long double css[CONFIG_MAX_METRICS][2][MOM_MAXV];
+};
+
+static void two_pass(void *ctx, uint64_t key, int arm, const double *values)
+{
+    (void)key;
+    struct pass *p = ctx;
+    double v[MOM_MAXV];
+    if (p->phase == 0)
+        p->n[arm] += 1;
+    for (int m = 0; m < p->lay->cfg->n_metrics; m++) {
+        layout_vector(p->lay, m, values, v);
+        for (int j = 0; j < p->lay->nv[m]; j++) {
+            if (p->phase == 0)
+                p->sum[m][arm][j] += v[j];
+            else {
+                long double d = v[j] - p->mean[m][arm][j];
+                p->css[m][arm][j] += d * d;
+            }
+        }
+    }
+}
+
+static void test_ledger__tallies_match_two_pass(void **state)
+{
+    struct fx *f = *state;
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 20261101);
+    char unit[32], t[40];
+    int64_t base = 0;
+    time_parse_rfc3339("2026-11-03T00:00:00Z", 20, &base);
+    for (int i = 0; i < 20000; i++) {
+        int u = (int)gsl_rng_uniform_int(rng, 2000);
+        snprintf(unit, sizeof unit, "u%04d", u);
+        int64_t when = base + (int64_t)i * 20 * US_PER_SEC;
+        time_format(when, t, sizeof t);
+        if (gsl_rng_uniform(rng) < 0.15)
+            assign(f, unit, u % 2 ? "treatment" : "control", t);
+        else {
+            double v = u < 500 ? 1e9 + gsl_rng_uniform(rng) : gsl_rng_uniform(rng) * 20;
+            outcome(f, unit, gsl_rng_uniform(rng) < 0.7 ? "spend" : "visit", v, t);
+        }
+    }
+    gsl_rng_free(rng);
+    ledger_finish(f->l);
+    struct pass p;
+    memset(&p, 0, sizeof p);
+    p.lay = &f->lay;
+    ledger_each_unit(f->l, two_pass, &p);
+    for (int m = 0; m < f->cfg.n_metrics; m++)
+        for (int a = 0; a < 2; a++)
+            for (int j = 0; j < f->lay.nv[m]; j++)
+                p.mean[m][a][j] = p.sum[m][a][j] / p.n[a];
+    p.phase = 1;
+    ledger_each_unit(f->l, two_pass, &p);
+    for (int m = 0; m < f->cfg.n_metrics; m++)
+        for (int a = 0; a < 2; a++) {
+            const struct moments *mm = M(f, m, a);
+            assert_rel_close(mm->n, (double)p.n[a], 0);
+            for (int j = 0; j < f->lay.nv[m]; j++) {
+                assert_rel_close(mm->mean[j], (double)p.mean[m][a][j], 1e-12);
+                assert_rel_close(mm->c[j][j], (double)p.css[m][a][j], 1e-9);
+            }
+        }
+    assert_true(p.n[0] > 100 && p.n[1] > 100);
+}
+
+int main(void)
+{
+    gsl_set_error_handler_off();
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test_setup_teardown(test_ledger__exposure_is_earliest_assignment, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__outside_window, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__multi_arm_units_left_out, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__attribution_window, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__per_unit_values, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__cap, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__pre_period_covariate, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__duplicates_by_id, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__order_within_lateness, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__orphans_and_ignored, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__tallies_match_two_pass, setup, teardown),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
