@@ -50,6 +50,7 @@ struct layout {
     int64_t lateness_us;              /* how far out of order events may arrive */
     int64_t dedup_horizon_us;         /* how long event ids are remembered */
     uint32_t shard, n_shards;         /* keep units with hash % n_shards == shard (n_shards 1: all) */
+    uint64_t digest;                  /* fingerprint of what the ledger's layout depends on */
 };
 
 /* Integrity counters; all add up across ledgers. */
@@ -114,6 +115,20 @@ size_t ledger_memory(const struct ledger *l);
  * order, with its key, arm and the per-metric variables (layout offsets). */
 void ledger_each_unit(const struct ledger *l,
                       void (*fn)(void *ctx, uint64_t key, int arm, const double *values), void *ctx);
+
+/* Serialization of a ledger (for snapshots). ledger_save streams the state
+ * through `w` (returns 0 on success); the byte order is the machine's. */
+typedef int (*ledger_write_fn)(void *ctx, const void *p, size_t n);
+int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx);
+/* Rebuilds a ledger from buf[0..len) written by ledger_save with the same
+ * layout. Every count and index is checked against the buffer and the layout:
+ * malformed input gives NULL and a message, never a crash. */
+struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len, struct err *e);
+
+/* Moves every unit of src into dst (the two must hold disjoint units: a unit
+ * in both is an error) and adds src's counters and tallies; src is left
+ * unchanged. Used to combine shard or partition states into one. */
+int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e);
 
 /* The variables of metric m for a unit's stored values (cap applied). */
 void layout_vector(const struct layout *lay, int m, const double *values, double *v);

@@ -15,6 +15,7 @@
 #include "ledger.h"
 
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -92,6 +93,31 @@ static int event_index(const struct layout *lay, const char *name)
     return -1;
 }
 
+/* Fingerprint of the config parts that shape a ledger's contents: the
+ * experiment, the arms in order, the window, the covariate and the metrics'
+ * definitions. Alpha, SRM and sequential settings may change freely. */
+static uint64_t layout_digest(const struct config *cfg)
+{
+    char buf[64 * 1024];
+    size_t n = 0;
+#define PUT(...) n += (size_t)snprintf(n < sizeof buf ? buf + n : buf, n < sizeof buf ? sizeof buf - n : 0, __VA_ARGS__)
+    PUT("v1|%s|%lld|%lld|%d|%lld|", cfg->experiment, (long long)cfg->window_start,
+        (long long)cfg->window_end, cfg->has_covariate, (long long)cfg->pre_us);
+    for (int a = 0; a < cfg->n_arms; a++)
+        PUT("arm:%s|", cfg->arms[a].name);
+    for (int m = 0; m < cfg->n_metrics; m++) {
+        const struct metric_cfg *mc = &cfg->metrics[m];
+        PUT("metric:%s:%d:%s:%s:%s:%d:%lld:%d:%.17g|", mc->name, (int)mc->type,
+            mc->event ? mc->event : "", mc->numerator ? mc->numerator : "",
+            mc->denominator ? mc->denominator : "", mc->has_window, (long long)mc->window_us,
+            mc->has_cap, mc->has_cap ? mc->cap : 0.0);
+    }
+#undef PUT
+    if (n > sizeof buf)
+        n = sizeof buf;
+    return siphash24(&HASH_KEY_DEFAULT, buf, n);
+}
+
 static int add_target(struct layout *lay, const char *name, int metric, int part, struct err *e)
 {
     int i = event_index(lay, name);
@@ -127,6 +153,7 @@ int layout_init(struct layout *lay, const struct config *cfg, int64_t lateness_u
     }
     lay->n_values = off;
     lay->rec_size = sizeof(struct urec) + (size_t)off * sizeof(double);
+    lay->digest = layout_digest(cfg);
     return AB_OK;
 }
 
@@ -444,6 +471,19 @@ static int64_t watermark(const struct ledger *l)
     return l->max_time - l->lay->lateness_us;
 }
 
+/* An outcome is an orphan when it is after window.start but the unit had no
+ * exposure yet at its time (never exposed, or earlier than exposure − pre).
+ * Each outcome is judged once, when it is settled, against the unit's final
+ * exposure, so the count does not depend on how units are split or swept. */
+static bool is_orphan(const struct ledger *l, int64_t t, int64_t expo)
+{
+    if (t < l->cfg->window_start)
+        return false;
+    if (expo == NO_TIME)
+        return true;
+    return t < expo && expo - t > (l->cfg->has_covariate ? l->cfg->pre_us : 0);
+}
+
 /* Drops pending entries of an unexposed unit older than `cutoff`. */
 static void prune_unexposed(struct ledger *l, struct urec *r, int64_t cutoff)
 {
@@ -472,6 +512,8 @@ static void sweep(struct ledger *l)
         struct urec *r = rec_at(l, i);
         if (r->arm != ARM_NONE) {
             if (!(r->flags & F_FINAL) && r->expo < wm) {
+                for (uint32_t k = r->pend; k; k = l->pend[k].next)
+                    l->cnt.orphan_outcomes += is_orphan(l, l->pend[k].t, r->expo);
                 pend_clear(l, r);
                 r->flags |= F_FINAL;
             }
@@ -604,7 +646,9 @@ static int apply_outcome_event(struct ledger *l, const struct event *ev, uint64_
         if (!r && !(r = unit_find(l, key, true)))
             return -1;
     }
-    if (!(r->flags & F_FINAL)) {
+    if (r->flags & F_FINAL) {
+        l->cnt.orphan_outcomes += is_orphan(l, ev->time_us, r->expo);
+    } else {
         uint32_t i = pend_alloc(l);
         if (!i)
             return -1;
@@ -632,7 +676,10 @@ int ledger_apply(struct ledger *l, const struct event *ev)
     }
     l->cnt.accepted++;
     if (ev->id.p) {
-        uint64_t h = siphash24(&HASH_KEY_DEFAULT, ev->id.p, ev->id.n);
+        /* ids are scoped by unit: a unit's events all live in one partition
+         * or shard, so de-duplication is exact however the units are split */
+        struct hash_key k = {key, key ^ HASH_KEY_DEFAULT.k1};
+        uint64_t h = siphash24(&k, ev->id.p, ev->id.n);
         int seen = id_seen(l, h, ev->time_us);
         if (seen < 0)
             return -1;
@@ -747,4 +794,264 @@ void ledger_each_unit(const struct ledger *l,
         if (in_tally(r))
             fn(ctx, r->key, r->arm, r->v);
     }
+}
+
+/* ---------------------------------------------------------------- snapshots */
+
+#define SNAP_TAG UINT32_C(0x4c444731) /* "LDG1" */
+
+struct wr {
+    ledger_write_fn w;
+    void *ctx;
+    int rc;
+};
+
+static void put(struct wr *o, const void *p, size_t n)
+{
+    if (!o->rc && n)
+        o->rc = o->w(o->ctx, p, n);
+}
+
+static void put_u64(struct wr *o, uint64_t v)
+{
+    put(o, &v, sizeof v);
+}
+
+int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx)
+{
+    struct wr o = {w, ctx, 0};
+    const struct config *cfg = l->cfg;
+    uint32_t hdr[4] = {SNAP_TAG, (uint32_t)l->lay->rec_size, (uint32_t)cfg->n_metrics, (uint32_t)cfg->n_arms};
+    put(&o, hdr, sizeof hdr);
+    put(&o, &l->cnt, sizeof l->cnt);
+    int64_t times[2] = {l->max_time, l->last_sweep};
+    put(&o, times, sizeof times);
+    put_u64(&o, l->finished);
+    put(&o, l->units, sizeof l->units);
+    for (int m = 0; m < cfg->n_metrics; m++)
+        put(&o, mom(l, m, 0), (size_t)cfg->n_arms * sizeof(struct moments));
+    put_u64(&o, l->n_days);
+    put(&o, l->days, l->n_days * sizeof *l->days);
+    put_u64(&o, l->n_recs);
+    for (uint32_t i = 0; i < l->n_recs; i++)
+        put(&o, rec_at(l, i), l->lay->rec_size);
+    /* pending entries, unit by unit, in list order */
+    put_u64(&o, l->pend_used);
+    for (uint32_t i = 0; i < l->n_recs; i++) {
+        const struct urec *r = rec_at(l, i);
+        for (uint32_t k = r->pend; k; k = l->pend[k].next) {
+            struct { uint32_t rec, ev; int64_t t; double v; } pe = {i, l->pend[k].ev, l->pend[k].t, l->pend[k].v};
+            put(&o, &pe, sizeof pe);
+        }
+    }
+    put_u64(&o, l->ids_n);
+    for (size_t i = 0; i < l->ids_cap; i++)
+        if (l->ids[i].h)
+            put(&o, &l->ids[i], sizeof l->ids[i]);
+    put_u64(&o, l->multi_n);
+    for (size_t i = 0; i < l->multi_cap; i++)
+        if (l->multi[i].mask)
+            put(&o, &l->multi[i], sizeof l->multi[i]);
+    put_u64(&o, SNAP_TAG);
+    return o.rc;
+}
+
+struct rd {
+    const unsigned char *p;
+    size_t left;
+    int bad;
+};
+
+static void take(struct rd *r, void *dst, size_t n)
+{
+    if (r->bad || n > r->left) {
+        r->bad = 1;
+        if (dst)
+            memset(dst, 0, n);
+        return;
+    }
+    if (dst)
+        memcpy(dst, r->p, n);
+    r->p += n;
+    r->left -= n;
+}
+
+static uint64_t take_u64(struct rd *r)
+{
+    uint64_t v = 0;
+    take(r, &v, sizeof v);
+    return v;
+}
+
+static struct ledger *load_fail(struct ledger *l, struct err *e, const char *why)
+{
+    ledger_free(l);
+    err_set(e, AB_EINPUT, "state is malformed: %s", why);
+    return NULL;
+}
+
+struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len, struct err *e)
+{
+    const struct config *cfg = lay->cfg;
+    struct rd r = {buf, len, 0};
+    uint32_t hdr[4];
+    take(&r, hdr, sizeof hdr);
+    if (r.bad || hdr[0] != SNAP_TAG)
+        return load_fail(NULL, e, "not a ledger section");
+    if (hdr[1] != lay->rec_size || hdr[2] != (uint32_t)cfg->n_metrics || hdr[3] != (uint32_t)cfg->n_arms)
+        return load_fail(NULL, e, "its layout differs from the config's");
+    struct ledger *l = ledger_new(lay);
+    if (!l)
+        return load_fail(NULL, e, "out of memory");
+    take(&r, &l->cnt, sizeof l->cnt);
+    int64_t times[2];
+    take(&r, times, sizeof times);
+    l->max_time = times[0];
+    l->last_sweep = times[1];
+    l->finished = take_u64(&r) != 0;
+    take(&r, l->units, sizeof l->units);
+    for (int m = 0; m < cfg->n_metrics; m++)
+        take(&r, mom(l, m, 0), (size_t)cfg->n_arms * sizeof(struct moments));
+    uint64_t nd = take_u64(&r);
+    if (r.bad || nd > r.left / sizeof *l->days)
+        return load_fail(l, e, "bad day count");
+    if (nd) {
+        if (!(l->days = malloc(nd * sizeof *l->days)))
+            return load_fail(l, e, "out of memory");
+        take(&r, l->days, nd * sizeof *l->days);
+        l->n_days = l->days_cap = nd;
+        for (size_t i = 1; i < nd; i++)
+            if (l->days[i].day <= l->days[i - 1].day)
+                return load_fail(l, e, "days out of order");
+    }
+    uint64_t nr = take_u64(&r);
+    if (r.bad || nr > r.left / lay->rec_size || nr >= UINT32_MAX / 2)
+        return load_fail(l, e, "bad unit count");
+    for (uint64_t i = 0; i < nr; i++) {
+        uint64_t key;
+        memcpy(&key, r.p, sizeof key);
+        struct urec *u = unit_find(l, key, true);
+        if (!u || l->n_recs != i + 1)
+            return load_fail(l, e, u ? "a unit appears twice" : "out of memory");
+        take(&r, u, lay->rec_size);
+        u->pend = 0;
+        if ((u->arm != ARM_NONE && u->arm >= cfg->n_arms) || (u->flags & F_DEAD))
+            return load_fail(l, e, "a unit has an impossible arm or flag");
+    }
+    uint64_t np = take_u64(&r);
+    if (r.bad || np > r.left / 24)
+        return load_fail(l, e, "bad pending count");
+    for (uint64_t i = 0; i < np; i++) {
+        struct { uint32_t rec, ev; int64_t t; double v; } pe;
+        take(&r, &pe, sizeof pe);
+        if (r.bad || pe.rec >= l->n_recs || pe.ev >= (uint32_t)lay->n_events)
+            return load_fail(l, e, "a pending outcome points nowhere");
+        uint32_t k = pend_alloc(l);
+        if (!k)
+            return load_fail(l, e, "out of memory");
+        struct urec *u = rec_at(l, pe.rec);
+        /* append, keeping the saved order */
+        l->pend[k] = (struct pent){pe.t, pe.v, 0, pe.ev};
+        uint32_t *link = &u->pend;
+        while (*link)
+            link = &l->pend[*link].next;
+        *link = k;
+    }
+    uint64_t ni = take_u64(&r);
+    if (r.bad || ni > r.left / sizeof(struct idslot))
+        return load_fail(l, e, "bad id count");
+    size_t cap = 4096;
+    while (cap < ni * 2 + 2)
+        cap *= 2;
+    if (!(l->ids = calloc(cap, sizeof *l->ids)))
+        return load_fail(l, e, "out of memory");
+    l->ids_cap = cap;
+    for (uint64_t i = 0; i < ni; i++) {
+        struct idslot s;
+        take(&r, &s, sizeof s);
+        if (r.bad || !s.h)
+            return load_fail(l, e, "bad id entry");
+        size_t q = s.h & (cap - 1);
+        while (l->ids[q].h)
+            q = (q + 1) & (cap - 1);
+        l->ids[q] = s;
+        l->ids_n++;
+    }
+    uint64_t nm = take_u64(&r);
+    if (r.bad || nm > r.left / sizeof(struct multi))
+        return load_fail(l, e, "bad multi-arm count");
+    for (uint64_t i = 0; i < nm; i++) {
+        struct multi mm;
+        take(&r, &mm, sizeof mm);
+        struct multi *slot = r.bad || !mm.mask ? NULL : multi_get(l, mm.key);
+        if (!slot)
+            return load_fail(l, e, "bad multi-arm entry");
+        slot->mask = mm.mask;
+    }
+    if (take_u64(&r) != SNAP_TAG || r.bad || r.left)
+        return load_fail(l, e, "bad end of the ledger section");
+    l->pend_after_sweep = l->pend_used;
+    return l;
+}
+
+int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
+{
+    const struct config *cfg = dst->cfg;
+    if (dst->lay->rec_size != src->lay->rec_size)
+        return err_set(e, AB_EINPUT, "states have different layouts");
+    for (uint32_t i = 0; i < src->n_recs; i++) {
+        const struct urec *s = rec_at(src, i);
+        if (unit_find(dst, s->key, false))
+            return err_set(e, AB_EINPUT, "a unit appears in two of the states being merged "
+                                         "(overlapping shards or partitions)");
+        uint32_t before = dst->n_recs;
+        struct urec *d = unit_find(dst, s->key, true);
+        if (!d || dst->n_recs != before + 1)
+            return err_set(e, AB_EINPUT, "out of memory");
+        memcpy(d, s, dst->lay->rec_size);
+        d->pend = 0;
+        uint32_t *link = &d->pend;
+        for (uint32_t k = s->pend; k; k = src->pend[k].next) {
+            uint32_t n = pend_alloc(dst);
+            if (!n)
+                return err_set(e, AB_EINPUT, "out of memory");
+            dst->pend[n] = src->pend[k];
+            dst->pend[n].next = 0;
+            *link = n;
+            link = &dst->pend[n].next;
+        }
+    }
+    uint64_t *pa = (uint64_t *)&dst->cnt;
+    const uint64_t *pb = (const uint64_t *)&src->cnt;
+    for (size_t i = 0; i < sizeof dst->cnt / sizeof(uint64_t); i++)
+        pa[i] += pb[i];
+    for (int a = 0; a < cfg->n_arms; a++)
+        dst->units[a] += src->units[a];
+    for (int m = 0; m < cfg->n_metrics; m++)
+        for (int a = 0; a < cfg->n_arms; a++)
+            moments_merge(mom(dst, m, a), dst->lay->nv[m], mom(src, m, a));
+    for (size_t i = 0; i < src->n_days; i++) {
+        struct day_row *d = day_row(dst, src->days[i].day * US_PER_DAY);
+        if (!d)
+            return err_set(e, AB_EINPUT, "out of memory");
+        for (int a = 0; a < cfg->n_arms; a++)
+            d->units[a] += src->days[i].units[a];
+    }
+    for (size_t i = 0; i < src->ids_cap; i++)
+        if (src->ids[i].h && id_seen(dst, src->ids[i].h, src->ids[i].t) < 0)
+            return err_set(e, AB_EINPUT, "out of memory");
+    for (size_t i = 0; i < src->multi_cap; i++)
+        if (src->multi[i].mask) {
+            struct multi *m = multi_get(dst, src->multi[i].key);
+            if (!m)
+                return err_set(e, AB_EINPUT, "out of memory");
+            m->mask |= src->multi[i].mask;
+        }
+    if (src->max_time > dst->max_time)
+        dst->max_time = src->max_time;
+    if (src->last_sweep > dst->last_sweep)
+        dst->last_sweep = src->last_sweep;
+    dst->finished = dst->finished || src->finished;
+    dst->pend_after_sweep = dst->pend_used;
+    return AB_OK;
 }

@@ -20,6 +20,8 @@ struct command {
 
 static const struct command commands[] = {
     {"replay", cmd_replay, "replay archived event logs and print running estimates"},
+    {"srm", cmd_srm, "sample-ratio mismatch test from unit counts per arm"},
+    {"merge", cmd_merge, "combine the states of shards or workers into one readout"},
     /* more rows: see include/cmd.h */
     {NULL, NULL, NULL},
 };
