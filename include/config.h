@@ -87,6 +87,7 @@ struct config {
     double alpha;
     double srm_threshold;
     double srm_prior;         /* Dirichlet prior concentration c (α_a = c·π_a) */
+    bool srm_sequential;      /* alarm on the always-valid p (srm.test "sequential") instead of chi-square */
     struct seq_cfg seq;
     struct integrity_cfg integ;
     struct hash_cfg hash;

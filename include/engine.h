@@ -15,6 +15,8 @@
 #include <stdint.h>
 #include <stdio.h>
 
+#include <jansson.h>
+
 #include "config.h"
 #include "event.h"
 #include "ledger.h"
@@ -37,6 +39,7 @@ struct engine {
     int n_parts;
     int64_t every_us;
     int64_t tmax;      /* latest event time seen over all partitions */
+    double p_seq;      /* always-valid SRM p so far (running minimum over records) */
     bool final_only;
     FILE *out;         /* records go here (stdout) */
     FILE *quar;        /* quarantine, or NULL */
@@ -58,8 +61,13 @@ void engine_release(struct engine *en);
 int engine_line(struct engine *en, int part, const char *line, size_t len, bool too_long,
                 const char *src, uint64_t lineno, struct err *e);
 
-/* Emits the record at time `time` (final: settle every ledger first). */
+/* Emits the record at time `time` (final: canonical tallies). */
 int engine_emit(struct engine *en, int64_t time, bool final, struct err *e);
+
+/* Builds the record of the engine's ledgers without printing it (for check).
+ * *out is owned by the caller; *verdict receives the integrity verdict. */
+int engine_record(struct engine *en, int64_t time, bool final, json_t **out, int *verdict,
+                  struct err *e);
 
 /* Settles the ledgers and emits the final summary. */
 int engine_finish(struct engine *en, struct err *e);

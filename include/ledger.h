@@ -71,6 +71,17 @@ struct counters {
     uint64_t multi_arm_units;              /* units assigned to more than one arm */
     uint64_t multi_by_arm[CONFIG_MAX_ARMS];/* multi-arm units, counted in each arm they named */
     uint64_t units_seen[CONFIG_MAX_ARMS];  /* units ever exposed in each arm (incl. multi-arm) */
+    uint64_t hash_checked;                 /* assignments whose arm was recomputed from the hash */
+    uint64_t hash_mismatch;                /* ... and named another arm than the hash gives */
+};
+
+/* Units by segment: the attrs of the assignment that set the exposure,
+ * as "key=value" pairs sorted by key and joined by the byte 0x1f. */
+#define SEG_MAX 1024            /* distinct segments kept; more go to SEG_OTHER */
+#define SEG_OTHER "(other)"
+struct seg_row {
+    char *name;
+    uint64_t units[CONFIG_MAX_ARMS];
 };
 
 /* Units by first-exposure day (days since the epoch, UTC). */
@@ -108,6 +119,7 @@ const struct moments *ledger_moments(const struct ledger *l, int metric, int arm
 uint64_t ledger_units(const struct ledger *l, int arm);
 int64_t ledger_max_time(const struct ledger *l);
 size_t ledger_days(const struct ledger *l, const struct day_row **rows);
+size_t ledger_segments(const struct ledger *l, const struct seg_row **rows);
 size_t ledger_n_records(const struct ledger *l);
 size_t ledger_memory(const struct ledger *l);
 

@@ -23,6 +23,8 @@ struct tallies {
     struct counters cnt;
     struct day_row *days; /* sorted by day; owned */
     size_t n_days;
+    struct seg_row *segs; /* names owned */
+    size_t n_segs;
     int64_t max_time;
 };
 
@@ -35,8 +37,11 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
                     bool canonical, struct err *e);
 void tallies_release(struct tallies *t);
 
+struct readout;
+
 /* The output record at event time `time`; NULL when out of memory. */
-json_t *report_record(const struct layout *lay, const struct tallies *t, int64_t time, bool final);
+json_t *report_record(const struct layout *lay, const struct tallies *t, const struct readout *r,
+                      int64_t time, bool final);
 
 /* Prints a record as one JSON line ("%.17g" numbers, null for non-finite). */
 int report_print(FILE *f, json_t *rec);

@@ -513,11 +513,15 @@ static int parse_root(struct ctx *x, json_t *root, struct config *c)
     if ((rc = get_object(x, root, "srm", &s)))
         return rc;
     if (s) {
-        static const char *const sk[] = {"threshold", "prior", NULL};
+        static const char *const sk[] = {"threshold", "prior", "test", NULL};
+        static const char *const tests[] = {"chi2", "sequential", NULL};
+        int test = 0;
         if ((rc = only_keys(x, s, "srm", sk)) ||
+            (rc = get_choice(x, s, "srm", "test", 0, tests, &test)) ||
             (rc = get_number(x, s, "srm", "threshold", 0, 0, 1, 1, 1, &c->srm_threshold, NULL)) ||
             (rc = get_number(x, s, "srm", "prior", 0, 0, 1e12, 1, 0, &c->srm_prior, NULL)))
             return rc;
+        c->srm_sequential = test == 1;
     }
     if ((rc = read_sequential(x, root, c)) || (rc = read_integrity(x, root, c)) ||
         (rc = read_hash(x, root, c)))

@@ -10,6 +10,7 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include "readout.h"
 #include "report.h"
 #include "timefmt.h"
 
@@ -29,6 +30,7 @@ int engine_init(struct engine *en, const struct engine_opts *o, int n_parts, str
     en->every_us = o->every_us;
     en->final_only = o->final_only;
     en->tmax = INT64_MIN;
+    en->p_seq = 1.0;
     int rc;
     if ((rc = config_load(o->config_path, &en->cfg, e)))
         return rc;
@@ -80,24 +82,38 @@ static int quarantine(struct engine *en, const char *src, uint64_t lineno, enum 
     return AB_OK;
 }
 
-int engine_emit(struct engine *en, int64_t time, bool final, struct err *e)
+int engine_record(struct engine *en, int64_t time, bool final, json_t **out, int *verdict,
+                  struct err *e)
 {
     struct tallies t;
+    struct readout rd;
+    *out = NULL;
     int rc = tallies_collect(&t, &en->lay, en->parts, en->n_parts, final, e);
-    if (rc) {
-        tallies_release(&t);
-        return rc;
+    if (!rc && readout_compute(&rd, &en->cfg, &t, en->p_seq))
+        rc = err_set(e, AB_EINPUT, "out of memory");
+    if (!rc) {
+        en->p_seq = rd.p_seq;
+        if (verdict)
+            *verdict = rd.verdict;
+        if (!(*out = report_record(&en->lay, &t, &rd, time, final)))
+            rc = err_set(e, AB_EINPUT, "out of memory");
+        readout_release(&rd);
     }
-    json_t *rec = report_record(&en->lay, &t, time, final);
     tallies_release(&t);
-    if (!rec)
-        return err_set(e, AB_EINPUT, "out of memory");
+    return rc;
+}
+
+int engine_emit(struct engine *en, int64_t time, bool final, struct err *e)
+{
+    json_t *rec;
+    int rc = engine_record(en, time, final, &rec, NULL, e);
+    if (rc)
+        return rc;
     char *text = json_dumps(rec, JSON_COMPACT | JSON_REAL_PRECISION(17));
     json_decref(rec);
     if (!text)
         return err_set(e, AB_EINPUT, "out of memory");
     size_t len = strlen(text);
-    rc = AB_OK;
     if (fwrite(text, 1, len, en->out) != len || fputc('\n', en->out) == EOF)
         rc = err_set(e, AB_EINPUT, "output: write failed: %s", strerror(errno));
     if (!rc && en->on_record && en->on_record(en->on_record_ctx, text, len))

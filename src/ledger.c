@@ -19,6 +19,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "rebucket.h"
 #include "timefmt.h"
 
 #define F_MULTI 0x01 /* assigned to more than one arm: out of the tallies */
@@ -34,7 +35,7 @@ struct urec {
     uint32_t pend; /* head of the pending list, 0 when empty */
     uint8_t arm;   /* arm index, ARM_NONE before the first assignment */
     uint8_t flags; /* F_* */
-    uint16_t seg;  /* reserved for segment ids */
+    uint16_t seg;  /* segment number + 1 (0: no attrs) */
     double v[];    /* per metric values, at layout offsets */
 };
 
@@ -70,6 +71,9 @@ struct ledger {
         uint64_t key, mask;
     } *multi;
     size_t multi_cap, multi_n;
+    /* segments */
+    struct seg_row *segs;
+    size_t n_segs, segs_cap;
     /* first-exposure days */
     struct day_row *days;
     size_t n_days, days_cap;
@@ -313,6 +317,68 @@ static struct day_row *day_row(struct ledger *l, int64_t expo)
     return &l->days[lo];
 }
 
+/* ---------------------------------------------------------------- segments */
+
+static uint16_t seg_find(struct ledger *l, const char *name, bool create)
+{
+    for (size_t i = 0; i < l->n_segs; i++)
+        if (!strcmp(l->segs[i].name, name))
+            return (uint16_t)(i + 1);
+    if (!create)
+        return 0;
+    if (l->n_segs >= SEG_MAX && strcmp(name, SEG_OTHER))
+        return seg_find(l, SEG_OTHER, true); /* the one segment allowed past the limit */
+    if (l->n_segs == l->segs_cap) {
+        size_t cap = l->segs_cap ? l->segs_cap * 2 : 16;
+        struct seg_row *ns = realloc(l->segs, cap * sizeof *ns);
+        if (!ns)
+            return 0;
+        l->segs = ns;
+        l->segs_cap = cap;
+    }
+    struct seg_row *r = &l->segs[l->n_segs];
+    memset(r, 0, sizeof *r);
+    if (!(r->name = strdup(name)))
+        return 0;
+    return (uint16_t)++l->n_segs;
+}
+
+static int attr_cmp(const void *a, const void *b)
+{
+    const struct attr *x = a, *y = b;
+    size_t n = x->key.n < y->key.n ? x->key.n : y->key.n;
+    int c = memcmp(x->key.p, y->key.p, n);
+    return c ? c : (x->key.n > y->key.n) - (x->key.n < y->key.n);
+}
+
+/* The segment of an assignment's attrs (0 when it has none). */
+static uint16_t seg_of(struct ledger *l, const struct event *ev)
+{
+    if (!ev->n_attrs)
+        return 0;
+    struct attr a[EVENT_MAX_ATTRS];
+    memcpy(a, ev->attrs, (size_t)ev->n_attrs * sizeof *a);
+    qsort(a, (size_t)ev->n_attrs, sizeof *a, attr_cmp);
+    char name[512];
+    size_t n = 0;
+    for (int i = 0; i < ev->n_attrs; i++) {
+        size_t need = a[i].key.n + a[i].value.n + 2;
+        if (n + need >= sizeof name)
+            return seg_find(l, SEG_OTHER, true);
+        if (i)
+            name[n++] = '\x1f';
+        memcpy(name + n, a[i].key.p, a[i].key.n);
+        n += a[i].key.n;
+        name[n++] = '=';
+        memcpy(name + n, a[i].value.p, a[i].value.n);
+        n += a[i].value.n;
+    }
+    name[n] = '\0';
+    if (memchr(name, '\0', n))
+        return seg_find(l, SEG_OTHER, true);
+    return seg_find(l, name, true);
+}
+
 /* ---------------------------------------------------------------- tallies */
 
 static struct moments *mom(const struct ledger *l, int m, int arm)
@@ -338,6 +404,8 @@ static void tally_unit(struct ledger *l, const struct urec *r, int sign)
             moments_remove(mom(l, m, r->arm), lay->nv[m], v);
     }
     l->units[r->arm] += (uint64_t)(int64_t)sign;
+    if (r->seg)
+        l->segs[r->seg - 1].units[r->arm] += (uint64_t)(int64_t)sign;
     struct day_row *d = day_row(l, r->expo);
     if (d)
         d->units[r->arm] += (uint64_t)(int64_t)sign;
@@ -580,12 +648,18 @@ static int apply_assign(struct ledger *l, const struct event *ev, uint64_t key)
     bool late = ev->time_us < watermark(l);
     if (late)
         l->cnt.late_assignments++;
+    if (cfg->hash.enabled) {
+        l->cnt.hash_checked++;
+        if (rebucket_arm(cfg, ev->unit.p, ev->unit.n) != arm)
+            l->cnt.hash_mismatch++;
+    }
     struct urec *r = unit_find(l, key, true);
     if (!r)
         return -1;
     if (r->arm == ARM_NONE) {
         r->arm = (uint8_t)arm;
         r->expo = ev->time_us;
+        r->seg = seg_of(l, ev);
         r->flags &= (uint8_t)~F_DEAD;
         l->cnt.units_seen[arm]++;
         recompute(l, r);
@@ -614,6 +688,7 @@ static int apply_assign(struct ledger *l, const struct event *ev, uint64_t key)
         if (counted)
             tally_unit(l, r, -1);
         r->expo = ev->time_us;
+        r->seg = seg_of(l, ev);
         recompute(l, r);
         if (counted)
             tally_unit(l, r, +1);
@@ -742,6 +817,9 @@ void ledger_free(struct ledger *l)
     free(l->ids);
     free(l->multi);
     free(l->days);
+    for (size_t i = 0; i < l->n_segs; i++)
+        free(l->segs[i].name);
+    free(l->segs);
     free(l->mom);
     free(l);
 }
@@ -772,6 +850,12 @@ size_t ledger_days(const struct ledger *l, const struct day_row **rows)
 {
     *rows = l->days;
     return l->n_days;
+}
+
+size_t ledger_segments(const struct ledger *l, const struct seg_row **rows)
+{
+    *rows = l->segs;
+    return l->n_segs;
 }
 
 size_t ledger_n_records(const struct ledger *l)
@@ -832,6 +916,12 @@ int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx)
         put(&o, mom(l, m, 0), (size_t)cfg->n_arms * sizeof(struct moments));
     put_u64(&o, l->n_days);
     put(&o, l->days, l->n_days * sizeof *l->days);
+    put_u64(&o, l->n_segs);
+    for (size_t i = 0; i < l->n_segs; i++) {
+        put_u64(&o, strlen(l->segs[i].name));
+        put(&o, l->segs[i].name, strlen(l->segs[i].name));
+        put(&o, l->segs[i].units, sizeof l->segs[i].units);
+    }
     put_u64(&o, l->n_recs);
     for (uint32_t i = 0; i < l->n_recs; i++)
         put(&o, rec_at(l, i), l->lay->rec_size);
@@ -924,6 +1014,20 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
             if (l->days[i].day <= l->days[i - 1].day)
                 return load_fail(l, e, "days out of order");
     }
+    uint64_t ns = take_u64(&r);
+    if (r.bad || ns > SEG_MAX + 1)
+        return load_fail(l, e, "bad segment count");
+    for (uint64_t i = 0; i < ns; i++) {
+        uint64_t len = take_u64(&r);
+        char name[600];
+        if (r.bad || len >= sizeof name)
+            return load_fail(l, e, "bad segment name");
+        take(&r, name, len);
+        name[len] = '\0';
+        if (r.bad || strlen(name) != len || seg_find(l, name, false) || seg_find(l, name, true) != i + 1)
+            return load_fail(l, e, "bad segment");
+        take(&r, l->segs[i].units, sizeof l->segs[i].units);
+    }
     uint64_t nr = take_u64(&r);
     if (r.bad || nr > r.left / lay->rec_size || nr >= UINT32_MAX / 2)
         return load_fail(l, e, "bad unit count");
@@ -935,7 +1039,7 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
             return load_fail(l, e, u ? "a unit appears twice" : "out of memory");
         take(&r, u, lay->rec_size);
         u->pend = 0;
-        if ((u->arm != ARM_NONE && u->arm >= cfg->n_arms) || (u->flags & F_DEAD))
+        if ((u->arm != ARM_NONE && u->arm >= cfg->n_arms) || (u->flags & F_DEAD) || u->seg > l->n_segs)
             return load_fail(l, e, "a unit has an impossible arm or flag");
     }
     uint64_t np = take_u64(&r);
@@ -1010,6 +1114,8 @@ int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
             return err_set(e, AB_EINPUT, "out of memory");
         memcpy(d, s, dst->lay->rec_size);
         d->pend = 0;
+        if (s->seg && !(d->seg = seg_find(dst, src->segs[s->seg - 1].name, true)))
+            return err_set(e, AB_EINPUT, "out of memory");
         uint32_t *link = &d->pend;
         for (uint32_t k = s->pend; k; k = src->pend[k].next) {
             uint32_t n = pend_alloc(dst);
@@ -1036,6 +1142,13 @@ int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
             return err_set(e, AB_EINPUT, "out of memory");
         for (int a = 0; a < cfg->n_arms; a++)
             d->units[a] += src->days[i].units[a];
+    }
+    for (size_t i = 0; i < src->n_segs; i++) {
+        uint16_t k = seg_find(dst, src->segs[i].name, true);
+        if (!k)
+            return err_set(e, AB_EINPUT, "out of memory");
+        for (int a = 0; a < cfg->n_arms; a++)
+            dst->segs[k - 1].units[a] += src->segs[i].units[a];
     }
     for (size_t i = 0; i < src->ids_cap; i++)
         if (src->ids[i].h && id_seen(dst, src->ids[i].h, src->ids[i].t) < 0)

@@ -21,6 +21,7 @@ struct command {
 static const struct command commands[] = {
     {"replay", cmd_replay, "replay archived event logs and print running estimates"},
     {"srm", cmd_srm, "sample-ratio mismatch test from unit counts per arm"},
+    {"check", cmd_check, "the daily readout: integrity verdict, SRM and estimates (exit 3 when unsound)"},
     {"merge", cmd_merge, "combine the states of shards or workers into one readout"},
     /* more rows: see include/cmd.h */
     {NULL, NULL, NULL},

@@ -8,6 +8,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "readout.h"
 #include "timefmt.h"
 
 json_t *json_num(double x)
@@ -42,6 +43,28 @@ static int merge_days(struct tallies *t, const struct day_row *rows, size_t n, i
         }
         for (int a = 0; a < n_arms; a++)
             t->days[j].units[a] += rows[i].units[a];
+    }
+    return 0;
+}
+
+static int merge_segs(struct tallies *t, const struct seg_row *rows, size_t n, int n_arms)
+{
+    for (size_t i = 0; i < n; i++) {
+        size_t j = 0;
+        while (j < t->n_segs && strcmp(t->segs[j].name, rows[i].name))
+            j++;
+        if (j == t->n_segs) {
+            struct seg_row *ns = realloc(t->segs, (t->n_segs + 1) * sizeof *ns);
+            if (!ns)
+                return -1;
+            t->segs = ns;
+            memset(&ns[j], 0, sizeof *ns);
+            if (!(ns[j].name = strdup(rows[i].name)))
+                return -1;
+            t->n_segs++;
+        }
+        for (int a = 0; a < n_arms; a++)
+            t->segs[j].units[a] += rows[i].units[a];
     }
     return 0;
 }
@@ -88,7 +111,9 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
         }
         const struct day_row *rows;
         size_t nd = ledger_days(l, &rows);
-        if (merge_days(t, rows, nd, cfg->n_arms))
+        const struct seg_row *srows;
+        size_t ns = ledger_segments(l, &srows);
+        if (merge_days(t, rows, nd, cfg->n_arms) || merge_segs(t, srows, ns, cfg->n_arms))
             return err_set(e, AB_EINPUT, "out of memory");
         if (ledger_max_time(l) > t->max_time)
             t->max_time = ledger_max_time(l);
@@ -118,6 +143,11 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
 void tallies_release(struct tallies *t)
 {
     free(t->days);
+    for (size_t i = 0; i < t->n_segs; i++)
+        free(t->segs[i].name);
+    free(t->segs);
+    t->segs = NULL;
+    t->n_segs = 0;
     free(t->mom);
     t->mom = NULL;
     t->days = NULL;
@@ -134,7 +164,18 @@ static double arm_mean(enum metric_type type, const struct moments *m)
     return m->mean[0];
 }
 
-static json_t *metric_rows(const struct layout *lay, const struct tallies *t)
+static json_t *pair(double lo, double hi)
+{
+    json_t *a = json_array();
+    json_array_append_new(a, json_num(lo));
+    json_array_append_new(a, json_num(hi));
+    return a;
+}
+
+static const char *const role_names[] = {"primary", "guardrail", "secondary"};
+static const char *const type_names[] = {"mean", "binary", "ratio"};
+
+static json_t *metric_rows(const struct layout *lay, const struct tallies *t, const struct readout *rd)
 {
     const struct config *cfg = lay->cfg;
     json_t *rows = json_array();
@@ -145,22 +186,78 @@ static json_t *metric_rows(const struct layout *lay, const struct tallies *t)
             if (a == cfg->control)
                 continue;
             const struct moments *arm = TALLY_MOM(t, m, a);
+            const struct effect *e = &rd->eff[m][a];
             json_t *r = json_object();
             json_object_set_new(r, "metric", json_string(mc->name));
             json_object_set_new(r, "arm", json_string(cfg->arms[a].name));
+            json_object_set_new(r, "type", json_string(type_names[mc->type]));
+            json_object_set_new(r, "role", json_string(role_names[mc->role]));
             json_object_set_new(r, "n", json_integer((json_int_t)arm->n));
             json_object_set_new(r, "mean", json_num(arm_mean(mc->type, arm)));
             json_object_set_new(r, "control_n", json_integer((json_int_t)ctl->n));
             json_object_set_new(r, "control_mean", json_num(arm_mean(mc->type, ctl)));
+            json_object_set_new(r, "diff", json_num(e->diff));
+            json_object_set_new(r, "ci", pair(e->ci_lo, e->ci_hi));
+            json_object_set_new(r, "p", json_num(e->p));
+            json_object_set_new(r, "p_adjusted", json_num(rd->p_adjusted[m][a]));
+            json_object_set_new(r, "test", json_string(e->flags & EFF_FISHER ? "fisher"
+                                                       : isfinite(e->df) ? "welch_t" : "z"));
+            json_object_set_new(r, "df", json_num(e->df));
+            json_object_set_new(r, "lift", json_num(e->lift));
+            json_object_set_new(r, "lift_ci", pair(e->lift_lo, e->lift_hi));
+            json_object_set_new(r, "cuped_diff", json_num(e->cuped_diff));
+            json_object_set_new(r, "cuped_ci", pair(e->cuped_lo, e->cuped_hi));
+            json_object_set_new(r, "var_reduction", json_num(e->var_reduction));
+            if (mc->better) {
+                json_object_set_new(r, "better", json_string(mc->better > 0 ? "higher" : "lower"));
+                json_object_set_new(r, "p_harm", json_num(e->p_harm));
+                json_object_set_new(r, "harm", json_boolean(e->harm));
+            }
             json_array_append_new(rows, r);
         }
     }
     return rows;
 }
 
-static json_t *integrity(const struct config *cfg, const struct counters *c)
+static json_t *srm_parts(const struct srm_part *parts, int n, const char *key)
+{
+    json_t *a = json_array();
+    for (int i = 0; i < n; i++) {
+        json_t *o = json_object();
+        json_object_set_new(o, key, json_string(parts[i].name));
+        json_object_set_new(o, "units", json_integer((json_int_t)parts[i].units));
+        json_object_set_new(o, "p", json_num(parts[i].p));
+        json_object_set_new(o, "p_adjusted", json_num(parts[i].p_adj));
+        json_array_append_new(a, o);
+    }
+    return a;
+}
+
+static json_t *srm_json(const struct readout *rd)
+{
+    static const char *const tests[] = {"none", "chi2", "binomial", "insufficient"};
+    json_t *o = json_object();
+    json_object_set_new(o, "chi2", json_num(rd->srm.chi2));
+    json_object_set_new(o, "df", json_num(rd->srm.df));
+    json_object_set_new(o, "p", json_num(rd->srm.p));
+    json_object_set_new(o, "test", json_string(tests[rd->srm.test & 3]));
+    json_object_set_new(o, "p_seq", json_num(rd->p_seq));
+    json_object_set_new(o, "alarm", json_boolean(rd->srm_alarm));
+    json_object_set_new(o, "by_day", srm_parts(rd->days, rd->n_days, "day"));
+    json_object_set_new(o, "by_segment", srm_parts(rd->segments, rd->n_segments, "segment"));
+    return o;
+}
+
+static json_t *integrity(const struct config *cfg, const struct counters *c, const struct readout *rd)
 {
     json_t *o = json_object();
+    json_object_set_new(o, "verdict", json_string(verdict_name(rd->verdict)));
+    json_t *rs = json_array();
+    for (int i = 0; i < rd->n_reasons; i++)
+        json_array_append_new(rs, json_pack("{s:s, s:s, s:s}", "check", rd->reasons[i].check,
+                                            "severity", rd->reasons[i].severity == SEV_FAIL ? "fail" : "warn",
+                                            "detail", rd->reasons[i].detail));
+    json_object_set_new(o, "reasons", rs);
     json_object_set_new(o, "multi_arm_units", json_integer((json_int_t)c->multi_arm_units));
     json_object_set_new(o, "orphan_outcomes", json_integer((json_int_t)c->orphan_outcomes));
     json_object_set_new(o, "duplicates", json_integer((json_int_t)c->duplicates));
@@ -170,6 +267,10 @@ static json_t *integrity(const struct config *cfg, const struct counters *c)
     json_object_set_new(o, "ignored_outcomes", json_integer((json_int_t)c->ignored_outcomes));
     if (c->other_shard)
         json_object_set_new(o, "other_shard", json_integer((json_int_t)c->other_shard));
+    if (cfg->hash.enabled) {
+        json_object_set_new(o, "hash_checked", json_integer((json_int_t)c->hash_checked));
+        json_object_set_new(o, "hash_mismatch", json_integer((json_int_t)c->hash_mismatch));
+    }
     json_object_set_new(o, "lines_read", json_integer((json_int_t)c->lines));
     json_object_set_new(o, "accepted", json_integer((json_int_t)c->accepted));
     json_t *rej = json_object();
@@ -183,10 +284,17 @@ static json_t *integrity(const struct config *cfg, const struct counters *c)
     }
     json_object_set_new(o, "multi_arm_by_arm", ma);
     json_object_set_new(o, "duplicates_by_arm", da);
+    if (cfg->has_covariate) {
+        json_t *b = json_object();
+        for (int m = 0; m < cfg->n_metrics; m++)
+            json_object_set_new(b, cfg->metrics[m].name, json_num(rd->smd[m]));
+        json_object_set_new(o, "balance_smd", b);
+    }
     return o;
 }
 
-json_t *report_record(const struct layout *lay, const struct tallies *t, int64_t time, bool final)
+json_t *report_record(const struct layout *lay, const struct tallies *t, const struct readout *rd,
+                      int64_t time, bool final)
 {
     const struct config *cfg = lay->cfg;
     char ts[40];
@@ -199,8 +307,9 @@ json_t *report_record(const struct layout *lay, const struct tallies *t, int64_t
     for (int a = 0; a < cfg->n_arms; a++)
         json_object_set_new(units, cfg->arms[a].name, json_integer((json_int_t)t->units[a]));
     json_object_set_new(rec, "units", units);
-    json_object_set_new(rec, "metrics", metric_rows(lay, t));
-    json_object_set_new(rec, "integrity", integrity(cfg, &t->cnt));
+    json_object_set_new(rec, "srm", srm_json(rd));
+    json_object_set_new(rec, "metrics", metric_rows(lay, t, rd));
+    json_object_set_new(rec, "integrity", integrity(cfg, &t->cnt, rd));
     return rec;
 }
 
