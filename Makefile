@@ -78,6 +78,11 @@ $(BUILD)/tests/%: tests/%.c tests/helpers.h $(BUILD)/libcore.a | $(DEPS_OK)
 test: $(BUILD)/abtally $(TEST_BIN)
 	$(Q)sh tests/run.sh $(BUILD)
 
+# The sequential-testing simulations with ten times the streams of make test
+# (20,000 streams per scenario; about ten seconds).
+sim: $(BUILD)/tests/test_seq
+	$(Q)ABTALLY_SIM_HEAVY=1 $(BUILD)/tests/test_seq
+
 check-layering:
 	$(Q)sh tests/check-layering.sh
 

@@ -12,6 +12,7 @@
 
 #include "err.h"
 #include "moments.h"
+#include "seq.h"
 
 #define CONFIG_MAX_ARMS 64     /* arms per experiment */
 #define CONFIG_MAX_METRICS 64  /* metrics per experiment */
@@ -19,7 +20,6 @@
 
 enum metric_role { ROLE_PRIMARY = 0, ROLE_GUARDRAIL = 1, ROLE_SECONDARY = 2 };
 enum seq_method { SEQ_NONE = 0, SEQ_SPENDING, SEQ_MIXTURE, SEQ_SEQUENCE };
-enum seq_shape { SHAPE_OBF = 0, SHAPE_POCOCK, SHAPE_HSD };
 
 struct arm_cfg {
     char *name;

@@ -4,9 +4,15 @@
  * event-time boundaries → final summary.
  *
  * A record for boundary B (a multiple of `every` since the epoch, after
- * window.start) is emitted when the stream first passes B, before the event
- * that passed it is applied: for a log in time order it reflects exactly the
- * events before B. The final summary comes last, with "final": true.
+ * window.start) reflects, for every partition, the events the partition held
+ * before its first event at or after B: the partition's tallies are captured
+ * at that moment, and the record is emitted once every partition has passed B
+ * (or is idle, i.e. caught up with its log). For a log in time order this is
+ * exactly the events before B, however the log is split into partitions and
+ * however the consumer interleaves them, so live and replay print the same
+ * records (running tallies merge in a different order: equal to rounding; the
+ * final summary is recomputed canonically and is identical). The final
+ * summary comes last, with "final": true.
  */
 #ifndef ABTALLY_ENGINE_H
 #define ABTALLY_ENGINE_H
@@ -20,6 +26,7 @@
 #include "config.h"
 #include "event.h"
 #include "ledger.h"
+#include "report.h"
 
 struct engine_opts {
     const char *config_path;
@@ -40,6 +47,15 @@ struct engine {
     int64_t every_us;
     int64_t tmax;      /* latest event time seen over all partitions */
     double p_seq;      /* always-valid SRM p so far (running minimum over records) */
+    int64_t *pmax;     /* per partition: latest event time seen */
+    bool *idle;        /* per partition: caught up with its log */
+    struct pending_rec {
+        int64_t b;            /* boundary time */
+        struct tallies acc;   /* captures of the partitions that passed b */
+        bool *got;            /* per partition: captured */
+    } *pend;
+    int n_pend;
+    int64_t tmax_emitted; /* latest boundary opened */
     bool final_only;
     FILE *out;         /* records go here (stdout) */
     FILE *quar;        /* quarantine, or NULL */
@@ -54,6 +70,17 @@ void engine_opts_default(struct engine_opts *o);
 /* Loads the config and makes n_parts empty ledgers. */
 int engine_init(struct engine *en, const struct engine_opts *o, int n_parts, struct err *e);
 void engine_release(struct engine *en);
+
+/* Sizes the engine for n partitions with no ledger yet (watch assigns them). */
+int engine_set_parts(struct engine *en, int n, struct err *e);
+
+/* Partition p has caught up with its log (true) or received data (false);
+ * pending records may be emitted. */
+int engine_part_idle(struct engine *en, int p, bool idle, struct err *e);
+
+/* Emits every pending record with the partitions' current tallies for those
+ * not yet captured (before a partition changes owner, and at the end). */
+int engine_flush_pending(struct engine *en, struct err *e);
 
 /* Takes one line of partition `part`; src and lineno name its position for
  * the quarantine. Returns AB_OK, or AB_EINPUT on a runtime failure (out of

@@ -22,8 +22,11 @@ enum metric_type { MT_MEAN = 0, MT_BINARY = 1, MT_RATIO = 2 };
 
 struct moments {
     double n;                       /* number of units */
-    double mean[MOM_MAXV];          /* running means */
+    double mean[MOM_MAXV];          /* running means (= ref + rmean; read these) */
     double c[MOM_MAXV][MOM_MAXV];   /* centred co-moment sums (symmetric) */
+    double ref[MOM_MAXV];           /* the first vector added: updates run on v − ref, so
+                                       values far from 0 (e.g. near 1e9) keep their precision */
+    double rmean[MOM_MAXV];         /* running means of v − ref */
 };
 
 /* Number of variables a metric type keeps (2 or 4). */

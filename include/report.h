@@ -31,10 +31,12 @@ struct tallies {
 /* The moments of metric m in arm a. */
 #define TALLY_MOM(t, m, a) (&(t)->mom[(m) * CONFIG_MAX_ARMS + (a)])
 
-/* Merges n ledgers into *t. canonical: recompute the moments in key order.
+/* Merges n ledgers (NULL entries are skipped) into *t. canonical: recompute the moments in key order.
  * Returns AB_OK or AB_EINPUT (out of memory). */
 int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *const *ls, int n,
                     bool canonical, struct err *e);
+/* acc ← acc + t (running tallies of disjoint ledgers). AB_OK or AB_EINPUT. */
+int tallies_add(struct tallies *acc, const struct tallies *t, const struct layout *lay);
 void tallies_release(struct tallies *t);
 
 struct readout;

@@ -32,7 +32,7 @@ int time_from_epoch_ms(double ms, int64_t *us);
  * trimmed of trailing zeros) into buf (at least 32 bytes). */
 void time_format(int64_t us, char *buf, size_t n);
 
-/* Parses a duration "90s", "30m", "1h", "7d", "1.5h" (a bare number means
+/* Parses a duration "250ms", "90s", "30m", "1h", "7d", "1.5h" (a bare number means
  * hours) into *us (> 0). Returns 0, or -1 when malformed or not positive. */
 int duration_parse(const char *s, int64_t *us);
 

@@ -349,7 +349,7 @@ static int read_sequential(struct ctx *x, json_t *root, struct config *c)
     q->gamma = -4;
     if ((rc = get_number(x, s, "sequential", "gamma", 0, -40, 40, 0, 0, &q->gamma, &found)))
         return rc;
-    if (found && q->shape != SHAPE_HSD)
+    if (found && q->shape != SEQ_HSD)
         return bad(x, "sequential.gamma", "applies only to shape \"hsd\"");
     if ((rc = get_number(x, s, "sequential", "planned_units", 0, 1, 1e15, 0, 0, &q->planned_units,
                          &found)))
@@ -413,8 +413,11 @@ static int read_hash(struct ctx *x, json_t *root, struct config *c)
     int rc;
     if ((rc = get_object(x, root, "hash", &o)) || !o) {
         for (int i = 0; !rc && i < c->n_arms; i++)
-            if (c->hash.hi[i])
-                rc = bad(x, "arms[].buckets", "needs a \"hash\" section describing the assignment hash");
+            if (c->hash.hi[i]) {
+                char path[64];
+                snprintf(path, sizeof path, "arms[%d].buckets", i);
+                rc = bad(x, path, "needs a \"hash\" section describing the assignment hash");
+            }
         return rc;
     }
     static const char *const keys[] = {"function", "salt", "buckets", "format", NULL};

@@ -84,7 +84,7 @@ static enum reject get_str(struct decoder *d, json_t *o, const char *k, struct s
 
 static enum reject decode_time(json_t *t, int64_t *us)
 {
-    if (!t)
+    if (!t || (json_is_string(t) && json_string_length(t) == 0))
         return REJ_MISSING_FIELD;
     if (json_is_string(t))
         return time_parse_rfc3339(json_string_value(t), json_string_length(t), us) ? REJ_BAD_TIME
@@ -102,6 +102,8 @@ static enum reject decode_obj(struct decoder *d, json_t *o, struct event *ev)
         return REJ_MISSING_FIELD;
     if (!json_is_string(kind))
         return REJ_BAD_TYPE;
+    if (json_string_length(kind) == 0)
+        return REJ_MISSING_FIELD;
     const char *k = json_string_value(kind);
     if (!strcmp(k, "assign"))
         ev->kind = EV_ASSIGN;

@@ -20,9 +20,14 @@ struct command {
 
 static const struct command commands[] = {
     {"replay", cmd_replay, "replay archived event logs and print running estimates"},
+    {"plan", cmd_plan, "sample size, duration and the sequential boundary schedule"},
     {"srm", cmd_srm, "sample-ratio mismatch test from unit counts per arm"},
     {"check", cmd_check, "the daily readout: integrity verdict, SRM and estimates (exit 3 when unsound)"},
+    {"watch", cmd_watch, "consume the live event topic; same records as replay; resumable state"},
     {"merge", cmd_merge, "combine the states of shards or workers into one readout"},
+    {"broker", cmd_broker, "start an embedded Kafka-protocol broker on loopback (for trying watch and for tests)"},
+    {"publish", cmd_publish, "write event logs into a Kafka topic, keyed by unit"},
+    {"simulate", cmd_simulate, "write an invented experiment's event log (with faults to inject) for trying abtally"},
     /* more rows: see include/cmd.h */
     {NULL, NULL, NULL},
 };

@@ -1,6 +1,8 @@
 /*
  * moments.c — streaming co-moments (see moments.h).
  *
+ * Updates run on v − ref, ref being the first vector added, so the running
+ * means stay small and values near 1e9 lose no precision to them.
  * Adding x to a set of n − 1 units with means m gives
  *   C_n = C_{n−1} + (n−1)/n · (x − m_{n−1})(y − m_{n−1})     (Welford 1962)
  * and removal runs the same identity backwards, with
@@ -25,18 +27,27 @@ void moments_init(struct moments *m)
 
 void moments_add(struct moments *m, int nv, const double *v)
 {
+    if (m->n == 0) {
+        moments_init(m);
+        for (int j = 0; j < nv; j++)
+            m->ref[j] = m->mean[j] = v[j];
+        m->n = 1;
+        return;
+    }
     double n1 = m->n + 1.0;
     double d[MOM_MAXV];
     for (int j = 0; j < nv; j++)
-        d[j] = v[j] - m->mean[j];
+        d[j] = (v[j] - m->ref[j]) - m->rmean[j];
     double f = m->n / n1;
     for (int j = 0; j < nv; j++)
         for (int k = j; k < nv; k++) {
             m->c[j][k] += f * d[j] * d[k];
             m->c[k][j] = m->c[j][k];
         }
-    for (int j = 0; j < nv; j++)
-        m->mean[j] += d[j] / n1;
+    for (int j = 0; j < nv; j++) {
+        m->rmean[j] += d[j] / n1;
+        m->mean[j] = m->ref[j] + m->rmean[j];
+    }
     m->n = n1;
 }
 
@@ -49,8 +60,9 @@ void moments_remove(struct moments *m, int nv, const double *v)
     double n0 = m->n - 1.0;
     double old[MOM_MAXV], d[MOM_MAXV];
     for (int j = 0; j < nv; j++) {
-        old[j] = m->mean[j] - (v[j] - m->mean[j]) / n0;
-        d[j] = v[j] - old[j];
+        double x = v[j] - m->ref[j];
+        old[j] = m->rmean[j] - (x - m->rmean[j]) / n0;
+        d[j] = x - old[j];
     }
     double f = n0 / m->n;
     for (int j = 0; j < nv; j++)
@@ -60,8 +72,10 @@ void moments_remove(struct moments *m, int nv, const double *v)
                 c = 0; /* rounding can leave −ε on a variance */
             m->c[j][k] = m->c[k][j] = c;
         }
-    for (int j = 0; j < nv; j++)
-        m->mean[j] = old[j];
+    for (int j = 0; j < nv; j++) {
+        m->rmean[j] = old[j];
+        m->mean[j] = m->ref[j] + old[j];
+    }
     m->n = n0;
 }
 
@@ -76,15 +90,17 @@ void moments_merge(struct moments *a, int nv, const struct moments *b)
     double n = a->n + b->n;
     double d[MOM_MAXV];
     for (int j = 0; j < nv; j++)
-        d[j] = b->mean[j] - a->mean[j];
+        d[j] = ((b->ref[j] - a->ref[j]) + b->rmean[j]) - a->rmean[j];
     double f = a->n * b->n / n;
     for (int j = 0; j < nv; j++)
         for (int k = j; k < nv; k++) {
             a->c[j][k] += b->c[j][k] + d[j] * d[k] * f;
             a->c[k][j] = a->c[j][k];
         }
-    for (int j = 0; j < nv; j++)
-        a->mean[j] += d[j] * b->n / n;
+    for (int j = 0; j < nv; j++) {
+        a->rmean[j] += d[j] * b->n / n;
+        a->mean[j] = a->ref[j] + a->rmean[j];
+    }
     a->n = n;
 }
 

@@ -104,6 +104,8 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
     size_t total = 0;
     for (int i = 0; i < n; i++) {
         const struct ledger *l = ls[i];
+        if (!l)
+            continue; /* a partition this worker does not own */
         add_counters(&t->cnt, ledger_counters(l));
         for (int a = 0; a < cfg->n_arms; a++) {
             t->units[a] += ledger_units(l, a);
@@ -128,7 +130,8 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
     if (!c.refs)
         return err_set(e, AB_EINPUT, "out of memory");
     for (int i = 0; i < n; i++)
-        ledger_each_unit(ls[i], collect_unit, &c);
+        if (ls[i])
+            ledger_each_unit(ls[i], collect_unit, &c);
     qsort(c.refs, c.n, sizeof *c.refs, by_key);
     double v[MOM_MAXV];
     for (size_t i = 0; i < c.n; i++)
@@ -138,6 +141,23 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
         }
     free(c.refs);
     return AB_OK;
+}
+
+int tallies_add(struct tallies *acc, const struct tallies *t, const struct layout *lay)
+{
+    const struct config *cfg = lay->cfg;
+    add_counters(&acc->cnt, &t->cnt);
+    for (int a = 0; a < cfg->n_arms; a++)
+        acc->units[a] += t->units[a];
+    for (int m = 0; m < cfg->n_metrics; m++)
+        for (int a = 0; a < cfg->n_arms; a++)
+            moments_merge(TALLY_MOM(acc, m, a), lay->nv[m], TALLY_MOM(t, m, a));
+    if (t->max_time > acc->max_time)
+        acc->max_time = t->max_time;
+    return merge_days(acc, t->days, t->n_days, cfg->n_arms) ||
+                   merge_segs(acc, t->segs, t->n_segs, cfg->n_arms)
+               ? AB_EINPUT
+               : AB_OK;
 }
 
 void tallies_release(struct tallies *t)

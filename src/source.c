@@ -79,8 +79,15 @@ static int refill(struct source *s, struct err *e)
         return err_set(e, AB_EINPUT, "'%s': read failed after line %llu: %s", s->name,
                        (unsigned long long)s->line, msg);
     }
-    if (n == 0)
+    if (n == 0) {
+        /* gzread ends quietly on a truncated stream: ask zlib whether it was whole */
+        int zerr = Z_OK;
+        const char *msg = gzerror(s->gz, &zerr);
+        if (zerr != Z_OK && zerr != Z_STREAM_END)
+            return err_set(e, AB_EINPUT, "'%s': read failed after line %llu: %s", s->name,
+                           (unsigned long long)s->line, msg);
         s->eof = true;
+    }
     s->end += (size_t)n;
     return 0;
 }
@@ -109,11 +116,12 @@ int source_next(struct source *s, const char **line, size_t *len, bool *too_long
                 return 1;
             }
             /* the end of a line that began in an earlier buffer */
-            if (!overflow && have + chunk <= EVENT_MAX_LINE) {
-                memcpy(s->longbuf + have, p, chunk);
-                have += chunk;
-                if (have > 0 && s->longbuf[have - 1] == '\r')
-                    have--;
+            size_t body = chunk > 0 && p[chunk - 1] == '\r' ? chunk - 1 : chunk;
+            if (chunk == 0 && have > 0 && s->longbuf[have - 1] == '\r')
+                have--; /* the "\r" ended the previous buffer */
+            if (!overflow && have + body <= EVENT_MAX_LINE) {
+                memcpy(s->longbuf + have, p, body);
+                have += body;
             } else {
                 overflow = true;
             }

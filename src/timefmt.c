@@ -184,7 +184,9 @@ int duration_parse(const char *s, int64_t *us)
     if (end == s || !isfinite(v) || v <= 0)
         return -1;
     double unit;
-    if (!strcmp(end, "s"))
+    if (!strcmp(end, "ms"))
+        unit = 1e3;
+    else if (!strcmp(end, "s"))
         unit = 1e6;
     else if (!strcmp(end, "m") || !strcmp(end, "min"))
         unit = 60e6;
