@@ -46,8 +46,6 @@ struct seq_cfg {
     double gamma;           /* hsd */
     double planned_units;   /* spending: total units at information fraction 1 */
     int64_t look_every_us;  /* spending: cadence of looks in event time */
-    bool futility;          /* spending: non-binding futility bounds by beta spending */
-    double power;           /* spending futility: 1 - beta */
     double tau;             /* mixture: mixing sd on the effect scale (0 = from planned_units) */
     double rho;             /* sequence: tuning ρ (0 = from planned_units) */
     int sides;              /* 1 or 2 */

@@ -27,6 +27,7 @@
 #include "event.h"
 #include "ledger.h"
 #include "report.h"
+#include "seqrun.h"
 
 struct engine_opts {
     const char *config_path;
@@ -56,6 +57,7 @@ struct engine {
     } *pend;
     int n_pend;
     int64_t tmax_emitted; /* latest boundary opened */
+    struct seqrun *seq;   /* sequential monitoring across records (owned) */
     bool final_only;
     FILE *out;         /* records go here (stdout) */
     FILE *quar;        /* quarantine, or NULL */

@@ -64,10 +64,12 @@ struct counters {
     uint64_t late_assignments;             /* assignments later than the lateness bound */
     uint64_t outcomes;                     /* outcomes of a configured metric */
     uint64_t ignored_outcomes;             /* outcomes no metric uses */
-    uint64_t orphan_outcomes;              /* outcomes after window.start of never-exposed units */
+    uint64_t orphan_outcomes;              /* outcomes after window.start with no exposure yet at their
+                                              time (never exposed, or before exposure − pre) */
     uint64_t other_shard;                  /* events of units in other shards (replay --shard) */
     uint64_t duplicates;                   /* lines whose id was seen before */
-    uint64_t dup_by_arm[CONFIG_MAX_ARMS];  /* duplicates whose unit was exposed, by arm */
+    uint64_t dup_by_arm[CONFIG_MAX_ARMS];  /* duplicates of units counted in an arm, by arm
+                                              (judged once the unit's exposure is settled) */
     uint64_t multi_arm_units;              /* units assigned to more than one arm */
     uint64_t multi_by_arm[CONFIG_MAX_ARMS];/* multi-arm units, counted in each arm they named */
     uint64_t units_seen[CONFIG_MAX_ARMS];  /* units ever exposed in each arm (incl. multi-arm) */

@@ -40,10 +40,11 @@ int tallies_add(struct tallies *acc, const struct tallies *t, const struct layou
 void tallies_release(struct tallies *t);
 
 struct readout;
+struct seqrun;
 
-/* The output record at event time `time`; NULL when out of memory. */
+/* The output record at event time `time`; NULL when out of memory. seq may be NULL. */
 json_t *report_record(const struct layout *lay, const struct tallies *t, const struct readout *r,
-                      int64_t time, bool final);
+                      const struct seqrun *seq, int64_t time, bool final);
 
 /* Prints a record as one JSON line ("%.17g" numbers, null for non-finite). */
 int report_print(FILE *f, json_t *rec);

@@ -138,19 +138,6 @@ static int get_duration(struct ctx *x, json_t *o, const char *path, const char *
     return bad(x, full, "must be a positive duration such as \"1d\", \"6h\" or a number of hours");
 }
 
-static int get_bool(struct ctx *x, json_t *o, const char *path, const char *key, bool *out)
-{
-    char full[256];
-    join_path(full, sizeof full, path, key);
-    json_t *v = json_object_get(o, key);
-    if (!v)
-        return AB_OK;
-    if (!json_is_boolean(v))
-        return bad(x, full, "must be true or false");
-    *out = json_is_true(v);
-    return AB_OK;
-}
-
 /* Maps a string value to one of the NULL-terminated choices; *out = its index. */
 static int get_choice(struct ctx *x, json_t *o, const char *path, const char *key, int required,
                       const char *const *choices, int *out)
@@ -330,12 +317,11 @@ static int read_sequential(struct ctx *x, json_t *root, struct config *c)
     struct seq_cfg *q = &c->seq;
     q->look_every_us = US_PER_DAY;
     q->sides = 2;
-    q->power = 0.8;
     q->burn_in_units = 100;
     if ((rc = get_object(x, root, "sequential", &s)) || !s)
         return rc;
     static const char *const keys[] = {"method", "shape", "gamma", "planned_units", "look_every",
-                                       "futility", "power", "tau", "rho", "sides", "burn_in", NULL};
+                                       "tau", "rho", "sides", "burn_in", NULL};
     static const char *const methods[] = {"none", "spending", "mixture", "sequence", NULL};
     static const char *const shapes[] = {"obf", "pocock", "hsd", NULL};
     if ((rc = only_keys(x, s, "sequential", keys)))
@@ -358,8 +344,6 @@ static int read_sequential(struct ctx *x, json_t *root, struct config *c)
         return bad(x, "sequential.planned_units",
                    "is required with method \"spending\" (total units at the last look)");
     if ((rc = get_duration(x, s, "sequential", "look_every", &q->look_every_us)) ||
-        (rc = get_bool(x, s, "sequential", "futility", &q->futility)) ||
-        (rc = get_number(x, s, "sequential", "power", 0, 0, 1, 1, 1, &q->power, NULL)) ||
         (rc = get_number(x, s, "sequential", "tau", 0, 0, 1e300, 1, 0, &q->tau, NULL)) ||
         (rc = get_number(x, s, "sequential", "rho", 0, 0, 1e300, 1, 0, &q->rho, NULL)))
         return rc;

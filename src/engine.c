@@ -37,6 +37,10 @@ int engine_init(struct engine *en, const struct engine_opts *o, int n_parts, str
         return rc;
     if ((rc = layout_init(&en->lay, &en->cfg, o->lateness_us, o->horizon_us, e)))
         return rc;
+    if (!(en->seq = malloc(sizeof *en->seq)))
+        return err_set(e, AB_EINPUT, "out of memory");
+    if ((rc = seqrun_init(en->seq, &en->cfg, e)))
+        return rc;
     en->lay.shard = o->shard;
     en->lay.n_shards = o->n_shards ? o->n_shards : 1;
     if (!(en->dec = decoder_new()) ||
@@ -76,6 +80,7 @@ void engine_release(struct engine *en)
     free(en->pend);
     free(en->pmax);
     free(en->idle);
+    free(en->seq);
     decoder_free(en->dec);
     if (en->quar)
         fclose(en->quar);
@@ -107,8 +112,9 @@ static int record_of(struct engine *en, struct tallies *t, int64_t time, bool fi
     en->p_seq = rd.p_seq;
     if (verdict)
         *verdict = rd.verdict;
+    seqrun_update(en->seq, t, (const struct effect(*)[CONFIG_MAX_ARMS])rd.eff, time, final);
     int rc = AB_OK;
-    if (!(*out = report_record(&en->lay, t, &rd, time, final)))
+    if (!(*out = report_record(&en->lay, t, &rd, en->seq, time, final)))
         rc = err_set(e, AB_EINPUT, "out of memory");
     readout_release(&rd);
     return rc;

@@ -119,7 +119,8 @@ static enum reject decode_obj(struct decoder *d, json_t *o, struct event *ev)
     if (id) {
         if (!json_is_string(id))
             return REJ_BAD_TYPE;
-        ev->id = keep(d, id);
+        if (json_string_length(id)) /* an empty id is no id */
+            ev->id = keep(d, id);
     }
     if (ev->kind == EV_ASSIGN) {
         if ((r = get_str(d, o, "exp", &ev->exp)) || (r = get_str(d, o, "arm", &ev->arm)))

@@ -43,8 +43,12 @@ struct pent {
     int64_t t;     /* outcome time */
     double v;      /* outcome value */
     uint32_t next; /* next entry of the unit, 0 ends */
-    uint32_t ev;   /* outcome name index (layout) */
+    uint32_t ev;   /* outcome name index (layout), or DUP_MARK */
 };
+
+/* A pending entry that stands for a duplicate line of a unit whose exposure
+ * is not settled yet: counted by arm once it is (order-independent). */
+#define DUP_MARK UINT32_MAX
 
 struct idslot {
     uint64_t h; /* id hash, 0 = empty */
@@ -448,7 +452,8 @@ static void recompute(struct ledger *l, struct urec *r)
 {
     memset(r->v, 0, (size_t)l->lay->n_values * sizeof(double));
     for (uint32_t i = r->pend; i; i = l->pend[i].next)
-        apply_outcome(l, r, l->pend[i].t, (int)l->pend[i].ev, l->pend[i].v, false);
+        if (l->pend[i].ev != DUP_MARK)
+            apply_outcome(l, r, l->pend[i].t, (int)l->pend[i].ev, l->pend[i].v, false);
 }
 
 /* ---------------------------------------------------------------- ids */
@@ -558,8 +563,8 @@ static void prune_unexposed(struct ledger *l, struct urec *r, int64_t cutoff)
     uint32_t *link = &r->pend;
     while (*link) {
         uint32_t i = *link;
-        if (l->pend[i].t < cutoff) {
-            if (l->pend[i].t >= l->cfg->window_start)
+        if (l->pend[i].t < cutoff || l->finished) {
+            if (l->pend[i].ev != DUP_MARK && l->pend[i].t >= l->cfg->window_start)
                 l->cnt.orphan_outcomes++;
             *link = l->pend[i].next;
             pend_release(l, i);
@@ -580,8 +585,12 @@ static void sweep(struct ledger *l)
         struct urec *r = rec_at(l, i);
         if (r->arm != ARM_NONE) {
             if (!(r->flags & F_FINAL) && r->expo < wm) {
-                for (uint32_t k = r->pend; k; k = l->pend[k].next)
-                    l->cnt.orphan_outcomes += is_orphan(l, l->pend[k].t, r->expo);
+                for (uint32_t k = r->pend; k; k = l->pend[k].next) {
+                    if (l->pend[k].ev == DUP_MARK)
+                        l->cnt.dup_by_arm[r->arm] += !(r->flags & F_MULTI);
+                    else
+                        l->cnt.orphan_outcomes += is_orphan(l, l->pend[k].t, r->expo);
+                }
                 pend_clear(l, r);
                 r->flags |= F_FINAL;
             }
@@ -761,8 +770,17 @@ int ledger_apply(struct ledger *l, const struct event *ev)
         if (seen) {
             l->cnt.duplicates++;
             struct urec *r = unit_find(l, key, false);
-            if (r && in_tally(r))
-                l->cnt.dup_by_arm[r->arm]++;
+            if (r && (r->flags & F_FINAL)) {
+                if (in_tally(r))
+                    l->cnt.dup_by_arm[r->arm]++;
+            } else if (r) {
+                /* the unit's arm may still change: count it when settled */
+                uint32_t i = pend_alloc(l);
+                if (!i)
+                    return -1;
+                l->pend[i] = (struct pent){ev->time_us, 0, r->pend, DUP_MARK};
+                r->pend = i;
+            }
             return REJ_NONE;
         }
     }
@@ -1048,7 +1066,7 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     for (uint64_t i = 0; i < np; i++) {
         struct { uint32_t rec, ev; int64_t t; double v; } pe;
         take(&r, &pe, sizeof pe);
-        if (r.bad || pe.rec >= l->n_recs || pe.ev >= (uint32_t)lay->n_events)
+        if (r.bad || pe.rec >= l->n_recs || (pe.ev >= (uint32_t)lay->n_events && pe.ev != DUP_MARK))
             return load_fail(l, e, "a pending outcome points nowhere");
         uint32_t k = pend_alloc(l);
         if (!k)

@@ -9,6 +9,7 @@
 #include <string.h>
 
 #include "readout.h"
+#include "seqrun.h"
 #include "timefmt.h"
 
 json_t *json_num(double x)
@@ -195,7 +196,8 @@ static json_t *pair(double lo, double hi)
 static const char *const role_names[] = {"primary", "guardrail", "secondary"};
 static const char *const type_names[] = {"mean", "binary", "ratio"};
 
-static json_t *metric_rows(const struct layout *lay, const struct tallies *t, const struct readout *rd)
+static json_t *metric_rows(const struct layout *lay, const struct tallies *t, const struct readout *rd,
+                           const struct seqrun *seq)
 {
     const struct config *cfg = lay->cfg;
     json_t *rows = json_array();
@@ -232,6 +234,11 @@ static json_t *metric_rows(const struct layout *lay, const struct tallies *t, co
                 json_object_set_new(r, "better", json_string(mc->better > 0 ? "higher" : "lower"));
                 json_object_set_new(r, "p_harm", json_num(e->p_harm));
                 json_object_set_new(r, "harm", json_boolean(e->harm));
+            }
+            json_t *sq = seq ? seqrun_cell_json(seq, m, a) : NULL;
+            if (sq) {
+                json_object_update(r, sq);
+                json_decref(sq);
             }
             json_array_append_new(rows, r);
         }
@@ -314,7 +321,7 @@ static json_t *integrity(const struct config *cfg, const struct counters *c, con
 }
 
 json_t *report_record(const struct layout *lay, const struct tallies *t, const struct readout *rd,
-                      int64_t time, bool final)
+                      const struct seqrun *seq, int64_t time, bool final)
 {
     const struct config *cfg = lay->cfg;
     char ts[40];
@@ -328,7 +335,9 @@ json_t *report_record(const struct layout *lay, const struct tallies *t, const s
         json_object_set_new(units, cfg->arms[a].name, json_integer((json_int_t)t->units[a]));
     json_object_set_new(rec, "units", units);
     json_object_set_new(rec, "srm", srm_json(rd));
-    json_object_set_new(rec, "metrics", metric_rows(lay, t, rd));
+    json_object_set_new(rec, "metrics", metric_rows(lay, t, rd, seq));
+    if (seq && cfg->seq.method == SEQ_SPENDING)
+        json_object_set_new(rec, "looks", seqrun_looks_json(seq));
     json_object_set_new(rec, "integrity", integrity(cfg, &t->cnt, rd));
     return rec;
 }
