@@ -47,8 +47,8 @@ static void srm_parts(const struct config *cfg, struct srm_part *parts, int n,
                       const uint64_t (*counts)[CONFIG_MAX_ARMS])
 {
     double w[CONFIG_MAX_ARMS], c[CONFIG_MAX_ARMS];
-    double *p = malloc((size_t)(n ? n : 1) * sizeof *p);
-    double *adj = malloc((size_t)(n ? n : 1) * sizeof *adj);
+    double *p = calloc((size_t)(n ? n : 1), sizeof *p);
+    double *adj = calloc((size_t)(n ? n : 1), sizeof *adj);
     for (int a = 0; a < cfg->n_arms; a++)
         w[a] = cfg->arms[a].weight;
     for (int i = 0; i < n; i++) {
