@@ -59,7 +59,7 @@ struct engine {
     int64_t tmax_emitted; /* latest boundary opened */
     struct seqrun *seq;   /* sequential monitoring across records (owned) */
     bool final_only;
-    FILE *out;         /* records go here (stdout) */
+    FILE *out;         /* records go here (stdout); NULL: not printed */
     FILE *quar;        /* quarantine, or NULL */
     /* optional: called with each record's JSON text (no newline) */
     int (*on_record)(void *ctx, const char *json, size_t len);

@@ -17,6 +17,10 @@
 #include "render.h"
 #include "source.h"
 #include "states.h"
+#include "seqrun.h"
+#include <errno.h>
+#include <fcntl.h>
+#include <sys/stat.h>
 
 static const char usage[] =
     "usage: abtally check --config EXP.json (--state DIR | FILE...) [options]\n"
@@ -32,6 +36,8 @@ static const char usage[] =
     "  -f, --format FMT      text (default), json (the final record of the output contract)\n"
     "  -o, --out FILE        write the readout to FILE instead of stdout\n"
     "      --strict          exit 3 when doubtful too, not only when failed\n"
+    "      --no-record       with --state DIR: do not record this run as a look\n"
+    "                        (DIR/sequential.json) nor in DIR/history.jsonl\n"
     "      --lateness DUR    when replaying logs (default 1h)\n"
     "      --dedup-horizon DUR  when replaying logs (default 24h)\n"
     "  -h, --help            this help\n"
@@ -39,20 +45,131 @@ static const char usage[] =
     "\n"
     "exit status: 0 sound or doubtful, 3 failed (--strict: doubtful too),\n"
     "1 bad input, 2 usage error. Colour only on a terminal; NO_COLOR turns it off.\n"
+    "With --state DIR each run is a look of the sequential test: the bounds of\n"
+    "earlier runs are kept in DIR/sequential.json and their readouts in\n"
+    "DIR/history.jsonl (the path over time).\n"
     "\n"
     "examples:\n"
     "  abtally check --config checkout.json --state /var/lib/abtally/checkout\n"
     "  abtally check --config checkout.json --format json day*.jsonl.gz > readout.json\n";
 
+/* Collects every record text (running records of a replay) into an array. */
+static int collect_record(void *ctx, const char *json, size_t len)
+{
+    json_error_t je;
+    json_t *r = json_loadb(json, len, 0, &je);
+    return r ? json_array_append_new(ctx, r) : -1;
+}
+
+/* The first state argument that is a directory: where the readout keeps its
+ * own files (sequential.json: the looks taken so far; history.jsonl: one
+ * final record per check run). NULL when there is none. */
+static const char *state_dir(char **states, int n)
+{
+    struct stat st;
+    for (int i = 0; i < n; i++)
+        if (stat(states[i], &st) == 0 && S_ISDIR(st.st_mode))
+            return states[i];
+    return NULL;
+}
+
+static json_t *load_json(const char *dir, const char *name)
+{
+    char path[4096];
+    snprintf(path, sizeof path, "%s/%s", dir, name);
+    json_error_t je;
+    return json_load_file(path, 0, &je);
+}
+
+/* Writes text to dir/name atomically (temporary file, fsync, rename), mode 0600. */
+static int save_text(const char *dir, const char *name, const char *text, size_t len, struct err *e)
+{
+    char path[4096], tmp[4096];
+    snprintf(path, sizeof path, "%s/%s", dir, name);
+    snprintf(tmp, sizeof tmp, "%s/.%s.%ld.tmp", dir, name, (long)getpid());
+    int fd = open(tmp, O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0600);
+    if (fd < 0)
+        return err_set(e, AB_EINPUT, "'%s': %s", tmp, strerror(errno));
+    size_t off = 0;
+    while (off < len) {
+        ssize_t k = write(fd, text + off, len - off);
+        if (k <= 0) {
+            int saved = errno;
+            close(fd);
+            unlink(tmp);
+            return err_set(e, AB_EINPUT, "'%s': write failed: %s", path, strerror(saved));
+        }
+        off += (size_t)k;
+    }
+    if (fsync(fd) != 0 || close(fd) != 0 || rename(tmp, path) != 0) {
+        int saved = errno;
+        unlink(tmp);
+        return err_set(e, AB_EINPUT, "'%s': %s", path, strerror(saved));
+    }
+    return AB_OK;
+}
+
+/* Reads dir/history.jsonl (the final records of earlier check runs). */
+static json_t *load_history(const char *dir)
+{
+    char path[4096];
+    snprintf(path, sizeof path, "%s/history.jsonl", dir);
+    json_t *a = json_array();
+    FILE *f = fopen(path, "r");
+    if (!f)
+        return a;
+    json_error_t je;
+    json_t *r;
+    while ((r = json_loadf(f, JSON_DISABLE_EOF_CHECK, &je)))
+        json_array_append_new(a, r);
+    fclose(f);
+    return a;
+}
+
+/* Records this check run: the sequential state, and the final record in the
+ * history unless the newest entry already has the same data time. */
+static int record_run(const char *dir, struct engine *en, json_t *history, json_t *rec, struct err *e)
+{
+    json_t *sj = seqrun_to_json(en->seq);
+    json_object_set_new(sj, "p_seq", json_num(en->p_seq));
+    char *text = json_dumps(sj, JSON_COMPACT | JSON_REAL_PRECISION(17));
+    json_decref(sj);
+    if (!text)
+        return err_set(e, AB_EINPUT, "out of memory");
+    int rc = save_text(dir, "sequential.json", text, strlen(text), e);
+    free(text);
+    if (rc)
+        return rc;
+    size_t n = json_array_size(history);
+    const char *last = n ? json_string_value(json_object_get(json_array_get(history, n - 1), "time")) : NULL;
+    const char *now = json_string_value(json_object_get(rec, "time"));
+    if (last && now && !strcmp(last, now))
+        return AB_OK;
+    char path[4096];
+    snprintf(path, sizeof path, "%s/history.jsonl", dir);
+    int fd = open(path, O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0600);
+    FILE *f = fd >= 0 ? fdopen(fd, "a") : NULL;
+    if (!f) {
+        if (fd >= 0)
+            close(fd);
+        return err_set(e, AB_EINPUT, "'%s': %s", path, strerror(errno));
+    }
+    int w = json_dumpf(rec, f, JSON_COMPACT | JSON_REAL_PRECISION(17)) || fputc('\n', f) == EOF;
+    if (fclose(f) || w)
+        return err_set(e, AB_EINPUT, "'%s': write failed", path);
+    return AB_OK;
+}
+
 int cmd_check(int argc, char **argv)
 {
-    enum { O_STRICT = 256, O_LATE, O_HORIZON, O_VERSION };
+    enum { O_STRICT = 256, O_LATE, O_HORIZON, O_NOREC, O_VERSION };
     static const struct option opts[] = {
         {"config", required_argument, NULL, 'c'},
         {"state", required_argument, NULL, 's'},
         {"format", required_argument, NULL, 'f'},
         {"out", required_argument, NULL, 'o'},
         {"strict", no_argument, NULL, O_STRICT},
+        {"no-record", no_argument, NULL, O_NOREC},
         {"lateness", required_argument, NULL, O_LATE},
         {"dedup-horizon", required_argument, NULL, O_HORIZON},
         {"help", no_argument, NULL, 'h'},
@@ -61,11 +178,10 @@ int cmd_check(int argc, char **argv)
     };
     struct engine_opts o;
     engine_opts_default(&o);
-    o.final_only = true;
     const char *format = "text", *out = NULL;
     char **states = calloc((size_t)argc, sizeof *states);
     int n_states = 0;
-    bool strict = false;
+    bool strict = false, no_record = false;
     int c, rc = AB_OK;
     optind = 1;
     if (!states)
@@ -77,6 +193,7 @@ int cmd_check(int argc, char **argv)
         case 'f': format = optarg; break;
         case 'o': out = optarg; break;
         case O_STRICT: strict = true; break;
+        case O_NOREC: no_record = true; break;
         case O_LATE:
         case O_HORIZON:
             if (duration_parse(optarg, c == O_LATE ? &o.lateness_us : &o.horizon_us))
@@ -104,6 +221,24 @@ int cmd_check(int argc, char **argv)
     struct engine en;
     struct state_set set = {0};
     rc = engine_init(&en, &o, 1, &e);
+    /* the path over time: running records of the replayed logs, or the
+     * readouts of earlier check runs kept beside the state */
+    json_t *series = json_array();
+    const char *dir = n_states ? state_dir(states, n_states) : NULL;
+    if (!rc && dir) {
+        json_t *sj = load_json(dir, "sequential.json");
+        if (sj) {
+            rc = seqrun_from_json(en.seq, sj, &e);
+            if (json_is_number(json_object_get(sj, "p_seq")))
+                en.p_seq = json_number_value(json_object_get(sj, "p_seq"));
+            json_decref(sj);
+        }
+        json_decref(series);
+        series = load_history(dir);
+    }
+    en.out = NULL;
+    en.on_record = collect_record;
+    en.on_record_ctx = series;
     if (!rc && n_states) {
         rc = state_set_load(&set, &en.lay, states, n_states, &e);
         for (int i = 0; !rc && i < set.n; i++)
@@ -129,10 +264,14 @@ int cmd_check(int argc, char **argv)
     json_t *rec = NULL;
     int verdict = VERDICT_SOUND;
     if (!rc) {
+        rc = engine_flush_pending(&en, &e);
         ledger_finish(en.parts[0]);
         int64_t t = ledger_max_time(en.parts[0]);
-        rc = engine_record(&en, t == INT64_MIN ? 0 : t, true, &rec, &verdict, &e);
+        if (!rc)
+            rc = engine_record(&en, t == INT64_MIN ? 0 : t, true, &rec, &verdict, &e);
     }
+    if (!rc && dir && !no_record)
+        rc = record_run(dir, &en, series, rec, &e);
     if (!rc) {
         FILE *f = out ? fopen(out, "w") : stdout;
         if (!f)
@@ -147,6 +286,7 @@ int cmd_check(int argc, char **argv)
         }
     }
     json_decref(rec);
+    json_decref(series);
     state_set_release(&set);
     engine_release(&en);
     free(states);

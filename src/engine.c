@@ -140,7 +140,7 @@ static int print_record(struct engine *en, json_t *rec, struct err *e)
         return err_set(e, AB_EINPUT, "out of memory");
     size_t len = strlen(text);
     int rc = AB_OK;
-    if (fwrite(text, 1, len, en->out) != len || fputc('\n', en->out) == EOF)
+    if (en->out && (fwrite(text, 1, len, en->out) != len || fputc('\n', en->out) == EOF))
         rc = err_set(e, AB_EINPUT, "output: write failed: %s", strerror(errno));
     if (!rc && en->on_record && en->on_record(en->on_record_ctx, text, len))
         rc = err_set(e, AB_EINPUT, "output: the record could not be published");
