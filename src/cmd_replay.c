@@ -3,6 +3,8 @@
  * final summary out (JSON lines on stdout).
  */
 #include <getopt.h>
+#include <time.h>
+#include <unistd.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -33,6 +35,7 @@ static const char usage[] =
     "      --final-only         print only the final summary\n"
     "      --shard I/N          keep only the units of shard I of N (0 <= I < N), by unit hash\n"
     "      --save-state DIR     write the final state to DIR (for 'abtally merge' and 'check --state')\n"
+    "      --progress, --no-progress  show a progress line on stderr (default: on a terminal)\n"
     "  -h, --help               this help\n"
     "      --version            print the version\n"
     "\n"
@@ -58,9 +61,42 @@ static int parse_shard(const char *s, uint32_t *i, uint32_t *n)
     return 0;
 }
 
+/* The progress line on a terminal: bytes read, events/s and the time left. */
+struct progress {
+    bool on;
+    double start, last;
+    uint64_t total;  /* bytes of all files (0 when unknown, e.g. stdin) */
+    uint64_t done;   /* bytes of the files already finished */
+    uint64_t lines;
+};
+
+static double mono(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (double)ts.tv_sec + ts.tv_nsec * 1e-9;
+}
+
+static void progress_show(struct progress *p, const struct source *s, bool end)
+{
+    double now = mono();
+    if (!p->on || (!end && now - p->last < 0.5))
+        return;
+    p->last = now;
+    double el = now - p->start, at = (double)(p->done + (s ? source_offset(s) : 0));
+    double rate = el > 0 ? (double)p->lines / el : 0;
+    char eta[32] = "";
+    if (p->total && at > 0 && !end)
+        snprintf(eta, sizeof eta, " · about %.0f s left", el * ((double)p->total - at) / at);
+    fprintf(stderr, "\r\033[Kreplay: %.1f MB%s%.1f MB · %.0f events/s%s", at / 1e6,
+            p->total ? " of " : "", p->total ? (double)p->total / 1e6 : 0.0, rate, eta);
+    if (end)
+        fputc('\n', stderr);
+}
+
 int cmd_replay(int argc, char **argv)
 {
-    enum { O_EVERY = 256, O_LATE, O_HORIZON, O_QUAR, O_FINAL, O_SHARD, O_SAVE, O_VERSION };
+    enum { O_EVERY = 256, O_LATE, O_HORIZON, O_QUAR, O_FINAL, O_SHARD, O_SAVE, O_PROG, O_NOPROG, O_VERSION };
     static const struct option opts[] = {
         {"config", required_argument, NULL, 'c'},
         {"every", required_argument, NULL, O_EVERY},
@@ -70,6 +106,8 @@ int cmd_replay(int argc, char **argv)
         {"final-only", no_argument, NULL, O_FINAL},
         {"shard", required_argument, NULL, O_SHARD},
         {"save-state", required_argument, NULL, O_SAVE},
+        {"progress", no_argument, NULL, O_PROG},
+        {"no-progress", no_argument, NULL, O_NOPROG},
         {"help", no_argument, NULL, 'h'},
         {"version", no_argument, NULL, O_VERSION},
         {NULL, 0, NULL, 0},
@@ -77,6 +115,7 @@ int cmd_replay(int argc, char **argv)
     struct engine_opts o;
     engine_opts_default(&o);
     const char *save_dir = NULL;
+    struct progress pg = {.on = isatty(STDERR_FILENO) != 0};
     int c;
     optind = 1;
     while ((c = getopt_long(argc, argv, "c:h", opts, NULL)) != -1) {
@@ -101,6 +140,8 @@ int cmd_replay(int argc, char **argv)
                 return cli_error(AB_EUSAGE, "replay: --shard '%s': expected I/N with 0 <= I < N", optarg);
             break;
         case O_SAVE: save_dir = optarg; break;
+        case O_PROG: pg.on = true; break;
+        case O_NOPROG: pg.on = false; break;
         case 'h': return cli_usage(usage, 1);
         case O_VERSION: return cli_version();
         default: return cli_usage(usage, 0);
@@ -116,6 +157,12 @@ int cmd_replay(int argc, char **argv)
     char *stdin_only[] = {"-"};
     char **files = optind < argc ? argv + optind : stdin_only;
     int n_files = optind < argc ? argc - optind : 1;
+    pg.start = pg.last = mono();
+    for (int i = 0; pg.on && i < n_files; i++) {
+        struct stat st;
+        if (strcmp(files[i], "-") && stat(files[i], &st) == 0)
+            pg.total += (uint64_t)st.st_size;
+    }
     for (int i = 0; !rc && i < n_files; i++) {
         struct source *s = source_open(files[i], &e);
         if (!s) {
@@ -126,13 +173,18 @@ int cmd_replay(int argc, char **argv)
         size_t len;
         bool too_long;
         int got;
-        while ((got = source_next(s, &line, &len, &too_long, &e)) == 1)
+        while ((got = source_next(s, &line, &len, &too_long, &e)) == 1) {
             if ((rc = engine_line(&en, 0, line, len, too_long, source_name(s), source_line(s), &e)))
                 break;
+            if (pg.on && !(++pg.lines & 0xffff))
+                progress_show(&pg, s, false);
+        }
         if (got < 0)
             rc = e.code;
+        pg.done += source_offset(s);
         source_close(s);
     }
+    progress_show(&pg, NULL, true);
     if (!rc)
         rc = engine_finish(&en, &e);
     if (!rc && save_dir) {
