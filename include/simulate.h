@@ -55,7 +55,9 @@ enum sim_metric {
     SIM_N_METRICS
 };
 
-/* Faults and the syntax of --fault (FROM_DAY is 1-based: 1 = the first day). */
+/* Faults and the syntax of --fault. FROM_DAY is 1-based (1: the first day of
+ * the experiment); without it a line fault acts on the whole log, the
+ * pre-period included. */
 enum sim_fault_kind {
     SIM_F_LOSE_ASSIGN = 0, /* lose-assign:ARM:FRACTION[:FROM_DAY]  drop that share of ARM's assignments */
     SIM_F_MULTI_ARM,       /* multi-arm:FRACTION[:FROM_DAY]        a second assignment to another arm */
@@ -80,7 +82,8 @@ struct sim_fault {
     bool on;
     double amount;        /* the fraction of lines or units; self-select: the strength */
     int64_t max_delay_us; /* late: the largest delay */
-    int from_day;         /* 1-based day from which the fault acts (1: from the start) */
+    int from_day;         /* the fault acts on lines (units: exposures) from the start of this
+                           * 1-based experiment day on; 0: on the whole log, pre-period too */
 };
 
 struct sim_opts {

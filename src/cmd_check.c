@@ -33,11 +33,16 @@ static const char usage[] =
     "options:\n"
     "  -c, --config FILE     experiment config (required)\n"
     "  -s, --state DIR       read the saved state (repeatable; files or directories)\n"
-    "  -f, --format FMT      text (default), json (the final record of the output contract)\n"
+    "  -f, --format FMT      text (default), json (the final record of the output contract),\n"
+    "                        html (a self-contained page with charts; best with --out)\n"
     "  -o, --out FILE        write the readout to FILE instead of stdout\n"
     "      --strict          exit 3 when doubtful too, not only when failed\n"
+    "      --series FILE     records to draw the path over time from (the JSON lines\n"
+    "                        of 'watch' or 'replay'; default: DIR/history.jsonl)\n"
     "      --no-record       with --state DIR: do not record this run as a look\n"
     "                        (DIR/sequential.json) nor in DIR/history.jsonl\n"
+    "      --unit-key FILE   the secret unit key the states were made with (--unit-key\n"
+    "                        of watch or replay); also hashes the units of FILE...\n"
     "      --lateness DUR    when replaying logs (default 1h)\n"
     "      --dedup-horizon DUR  when replaying logs (default 24h)\n"
     "  -h, --help            this help\n"
@@ -51,7 +56,8 @@ static const char usage[] =
     "\n"
     "examples:\n"
     "  abtally check --config checkout.json --state /var/lib/abtally/checkout\n"
-    "  abtally check --config checkout.json --format json day*.jsonl.gz > readout.json\n";
+    "  abtally check --config checkout.json --format json day*.jsonl.gz > readout.json\n"
+    "  abtally check --config checkout.json --format html --out readout.html day*.jsonl.gz\n";
 
 /* Collects every record text (running records of a replay) into an array. */
 static int collect_record(void *ctx, const char *json, size_t len)
@@ -109,11 +115,9 @@ static int save_text(const char *dir, const char *name, const char *text, size_t
     return AB_OK;
 }
 
-/* Reads dir/history.jsonl (the final records of earlier check runs). */
-static json_t *load_history(const char *dir)
+/* Reads a JSON-lines file of records (DIR/history.jsonl, or --series). */
+static json_t *load_records(const char *path)
 {
-    char path[4096];
-    snprintf(path, sizeof path, "%s/history.jsonl", dir);
     json_t *a = json_array();
     FILE *f = fopen(path, "r");
     if (!f)
@@ -128,7 +132,7 @@ static json_t *load_history(const char *dir)
 
 /* Records this check run: the sequential state, and the final record in the
  * history unless the newest entry already has the same data time. */
-static int record_run(const char *dir, struct engine *en, json_t *history, json_t *rec, struct err *e)
+static int record_run(const char *dir, struct engine *en, json_t *rec, struct err *e)
 {
     json_t *sj = seqrun_to_json(en->seq);
     json_object_set_new(sj, "p_seq", json_num(en->p_seq));
@@ -140,13 +144,16 @@ static int record_run(const char *dir, struct engine *en, json_t *history, json_
     free(text);
     if (rc)
         return rc;
+    char path[4096];
+    snprintf(path, sizeof path, "%s/history.jsonl", dir);
+    json_t *history = load_records(path);
     size_t n = json_array_size(history);
     const char *last = n ? json_string_value(json_object_get(json_array_get(history, n - 1), "time")) : NULL;
     const char *now = json_string_value(json_object_get(rec, "time"));
-    if (last && now && !strcmp(last, now))
+    bool same = last && now && !strcmp(last, now);
+    json_decref(history);
+    if (same)
         return AB_OK;
-    char path[4096];
-    snprintf(path, sizeof path, "%s/history.jsonl", dir);
     int fd = open(path, O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0600);
     FILE *f = fd >= 0 ? fdopen(fd, "a") : NULL;
     if (!f) {
@@ -162,7 +169,7 @@ static int record_run(const char *dir, struct engine *en, json_t *history, json_
 
 int cmd_check(int argc, char **argv)
 {
-    enum { O_STRICT = 256, O_LATE, O_HORIZON, O_NOREC, O_VERSION };
+    enum { O_STRICT = 256, O_LATE, O_HORIZON, O_NOREC, O_SERIES, O_UNIT_KEY, O_VERSION };
     static const struct option opts[] = {
         {"config", required_argument, NULL, 'c'},
         {"state", required_argument, NULL, 's'},
@@ -170,8 +177,10 @@ int cmd_check(int argc, char **argv)
         {"out", required_argument, NULL, 'o'},
         {"strict", no_argument, NULL, O_STRICT},
         {"no-record", no_argument, NULL, O_NOREC},
+        {"series", required_argument, NULL, O_SERIES},
         {"lateness", required_argument, NULL, O_LATE},
         {"dedup-horizon", required_argument, NULL, O_HORIZON},
+        {"unit-key", required_argument, NULL, O_UNIT_KEY},
         {"help", no_argument, NULL, 'h'},
         {"version", no_argument, NULL, O_VERSION},
         {NULL, 0, NULL, 0},
@@ -182,6 +191,7 @@ int cmd_check(int argc, char **argv)
     char **states = calloc((size_t)argc, sizeof *states);
     int n_states = 0;
     bool strict = false, no_record = false;
+    const char *series_path = NULL;
     int c, rc = AB_OK;
     optind = 1;
     if (!states)
@@ -194,6 +204,8 @@ int cmd_check(int argc, char **argv)
         case 'o': out = optarg; break;
         case O_STRICT: strict = true; break;
         case O_NOREC: no_record = true; break;
+        case O_SERIES: series_path = optarg; break;
+        case O_UNIT_KEY: o.unit_key = optarg; break;
         case O_LATE:
         case O_HORIZON:
             if (duration_parse(optarg, c == O_LATE ? &o.lateness_us : &o.horizon_us))
@@ -208,12 +220,12 @@ int cmd_check(int argc, char **argv)
             return rc;
         }
     }
-    if (!o.config_path || (n_states > 0) == (optind < argc) || (strcmp(format, "text") && strcmp(format, "json"))) {
+    if (!o.config_path || (n_states > 0) == (optind < argc) || (strcmp(format, "text") && strcmp(format, "json") && strcmp(format, "html"))) {
         free(states);
         if (!o.config_path)
             return cli_error(AB_EUSAGE, "check: --config is required (try 'abtally check --help')");
-        if (strcmp(format, "text") && strcmp(format, "json"))
-            return cli_error(AB_EUSAGE, "check: --format '%s': expected text or json", format);
+        if (strcmp(format, "text") && strcmp(format, "json") && strcmp(format, "html"))
+            return cli_error(AB_EUSAGE, "check: --format '%s': expected text, json or html", format);
         return cli_error(AB_EUSAGE, "check: give either --state DIR or log FILEs, not both or neither");
     }
     struct err e;
@@ -233,8 +245,18 @@ int cmd_check(int argc, char **argv)
                 en.p_seq = json_number_value(json_object_get(sj, "p_seq"));
             json_decref(sj);
         }
+        char hist[4096];
+        snprintf(hist, sizeof hist, "%s/history.jsonl", dir);
         json_decref(series);
-        series = load_history(dir);
+        series = load_records(hist);
+    }
+    if (!rc && series_path) {
+        json_decref(series);
+        series = load_records(series_path);
+        /* a final summary in the series is this run's own record: keep the running ones */
+        size_t n = json_array_size(series);
+        if (n && json_is_true(json_object_get(json_array_get(series, n - 1), "final")))
+            json_array_remove(series, n - 1);
     }
     en.out = NULL;
     en.on_record = collect_record;
@@ -271,7 +293,7 @@ int cmd_check(int argc, char **argv)
             rc = engine_record(&en, t == INT64_MIN ? 0 : t, true, &rec, &verdict, &e);
     }
     if (!rc && dir && !no_record)
-        rc = record_run(dir, &en, series, rec, &e);
+        rc = record_run(dir, &en, rec, &e);
     if (!rc) {
         FILE *f = out ? fopen(out, "w") : stdout;
         if (!f)
@@ -280,7 +302,8 @@ int cmd_check(int argc, char **argv)
             bool colour = !out && isatty(STDOUT_FILENO) && !getenv("NO_COLOR");
             int w = !strcmp(format, "json")
                         ? (json_dumpf(rec, f, JSON_COMPACT | JSON_REAL_PRECISION(17)) || fputc('\n', f) == EOF)
-                        : render_text(f, rec, colour);
+                    : !strcmp(format, "html") ? render_html(f, series, rec)
+                                              : render_text(f, rec, colour);
             if ((out && fclose(f)) || w)
                 rc = err_set(&e, AB_EINPUT, "output: write failed");
         }

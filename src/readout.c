@@ -97,6 +97,11 @@ static int day_srm(struct readout *r, const struct config *cfg, const struct tal
 }
 
 /* Splits segment names "k=v\x1fk=v" into key=value parts and sums units per part. */
+static int by_part_name(const void *a, const void *b)
+{
+    return strcmp(((const struct srm_part *)a)->name, ((const struct srm_part *)b)->name);
+}
+
 static int segment_srm(struct readout *r, const struct config *cfg, const struct tallies *t)
 {
     int cap = 0;
@@ -140,6 +145,9 @@ static int segment_srm(struct readout *r, const struct config *cfg, const struct
     }
     srm_parts(cfg, r->segments, r->n_segments, (const uint64_t(*)[CONFIG_MAX_ARMS])counts);
     free(counts);
+    /* listed by name: the order of first arrival would depend on arrival order */
+    if (r->n_segments > 1)
+        qsort(r->segments, (size_t)r->n_segments, sizeof *r->segments, by_part_name);
     return AB_OK;
 }
 

@@ -298,7 +298,7 @@ int sim_parse_fault(struct sim_opts *o, const char *spec, struct err *e)
     int need = 2 + (kind == SIM_F_LOSE_ASSIGN) + (kind == SIM_F_LATE);
     if (n < need || n > need + 1)
         return err_set(e, AB_EUSAGE, "--fault '%s': expected %s", spec, syntax[kind]);
-    struct sim_fault x = {.on = true, .from_day = 1};
+    struct sim_fault x = {.on = true, .from_day = 0};
     int i = 1, arm = -1;
     if (kind == SIM_F_LOSE_ASSIGN) {
         arm = arm_index(o, f[i], len[i]);
@@ -394,12 +394,12 @@ int sim_validate(const struct sim_opts *o, struct err *e)
     }
     for (int k = 0; k < SIM_N_FAULTS; k++) {
         const struct sim_fault *f = &o->fault[k];
-        if (f->on && (f->from_day < 1 || f->from_day > o->days))
+        if (f->on && (f->from_day < 0 || f->from_day > o->days))
             return err_set(e, AB_EUSAGE, "--fault %s: FROM_DAY must be a day from 1 to %d",
                            fault_names[k], o->days);
     }
     for (int a = 0; a < o->n_arms; a++)
-        if (o->lose[a].on && (o->lose[a].from_day < 1 || o->lose[a].from_day > o->days))
+        if (o->lose[a].on && (o->lose[a].from_day < 0 || o->lose[a].from_day > o->days))
             return err_set(e, AB_EUSAGE, "--fault lose-assign: FROM_DAY must be a day from 1 to %d",
                            o->days);
     if (o->fault[SIM_F_LATE].on && (o->fault[SIM_F_LATE].max_delay_us < 1000 ||
@@ -557,7 +557,8 @@ static int day_of(const struct gen *g, int64_t ms)
  * the fault is on and acts on that day. */
 static bool picks(struct gen *g, const struct sim_fault *f, int kind, int day)
 {
-    return f->on && day >= f->from_day && f->amount > 0 && gsl_rng_uniform(g->frng[kind]) < f->amount;
+    return f->on && (f->from_day == 0 || day >= f->from_day) && f->amount > 0 &&
+           gsl_rng_uniform(g->frng[kind]) < f->amount;
 }
 
 /* Files one line, applying the line faults: malformed, late, duplicate. */
@@ -635,7 +636,7 @@ static int pick_arm(struct gen *g, double u, double lambda, int day)
     const struct sim_opts *o = g->o;
     const struct sim_fault *f = &o->fault[SIM_F_SELF_SELECT];
     int n = o->n_arms;
-    if (f->on && day >= f->from_day && f->amount != 0) {
+    if (f->on && (f->from_day == 0 || day >= f->from_day) && f->amount != 0) {
         double q = 1 - g->w[0];
         double c = gsl_cdf_gamma_P(lambda, o->activity_shape, g->gamma_scale);
         c = c < 1e-12 ? 1e-12 : c > 1 - 1e-12 ? 1 - 1e-12 : c;
