@@ -95,7 +95,14 @@ struct kafka_publisher;
  * Creates an idempotent producer for `topic` on `brokers` (bootstrap list;
  * may be NULL when props set bootstrap.servers) with the murmur2_random
  * partitioner (the keyed partitioning of the Java client; unkeyed messages go
- * to a random partition) and librdkafka's default batching, then applies
+ * to a random partition), librdkafka's default batching and one produce
+ * request in flight per broker (max.in.flight.requests.per.connection=1).
+ * The last is for the embedded broker: librdkafka 2.0.2's mock does not check
+ * the producer's sequence numbers, so with several requests in flight a
+ * retried batch can be overtaken, and then be lost (reported delivered) or
+ * written twice. On loopback it costs no measurable throughput (decoding
+ * dominates); against distant real brokers, --kafka
+ * max.in.flight.requests.per.connection=5 is safe and faster. Then applies
  * props[0..n_props) ("KEY=VALUE", through kafka_conf_set, so they override the
  * defaults), then checks the topic with kafka_topic_check(timeout_ms).
  * Returns the publisher (free with kafka_publisher_free) or NULL with *e

@@ -34,10 +34,15 @@ static const char usage[] =
     "  - A line over 1 MiB cannot be published whole: it is skipped and counted\n"
     "    ('replay' rejects it as too_long).\n"
     "\n"
-    "The producer is idempotent (enable.idempotence=true) and keeps librdkafka's\n"
-    "default batching. Before producing, the topic is looked up: a topic the\n"
-    "brokers did not have is reported (the embedded 'abtally broker' creates such a\n"
-    "topic with 4 partitions), and so is a partition count other than --partitions.\n"
+    "The producer is idempotent (enable.idempotence=true), keeps librdkafka's\n"
+    "default batching and one request in flight per broker, so that nothing is lost\n"
+    "or repeated even when the embedded broker injects faults (it does not check\n"
+    "sequence numbers); against distant real brokers, --kafka\n"
+    "max.in.flight.requests.per.connection=5 is safe and faster.\n"
+    "\n"
+    "Before producing, the topic is looked up: a topic the brokers did not have is\n"
+    "reported (the embedded 'abtally broker' creates such a topic with 4\n"
+    "partitions), and so is a partition count other than --partitions.\n"
     "\n"
     "options:\n"
     "  -b, --brokers LIST       bootstrap brokers, HOST:PORT[,HOST:PORT...]\n"
@@ -116,7 +121,7 @@ int cmd_publish(int argc, char **argv)
     }
     bool props_brokers = false;
     for (int i = 0; i < n_props; i++)
-        if (!strncmp(props[i], "bootstrap.servers=", 18))
+        if (!strncmp(props[i], "bootstrap.servers=", 18) || !strncmp(props[i], "metadata.broker.list=", 21))
             props_brokers = true;
     if (!topic || !*topic || (!brokers && !props_brokers)) {
         free(props);

@@ -283,6 +283,10 @@ struct kafka_publisher *kafka_publisher_new(const char *brokers, const char *top
     if ((brokers && kafka_conf_set_kv(conf, "bootstrap.servers", brokers, e)) ||
         kafka_conf_set_kv(conf, "partitioner", "murmur2_random", e) ||
         kafka_conf_set_kv(conf, "enable.idempotence", "true", e) ||
+        /* One request in flight per broker: exactly once and in order even
+         * against the embedded broker, which does not check sequence numbers
+         * (see kafka.h). */
+        kafka_conf_set_kv(conf, "max.in.flight.requests.per.connection", "1", e) ||
         kafka_conf_set_kv(conf, "client.id", "abtally-publish", e))
         goto fail;
     for (int i = 0; i < n_props; i++)

@@ -216,6 +216,9 @@ static void consume_all(const char *bootstraps, const char *topic, int n_parts, 
     assert_int_equal(kafka_conf_set(conf, "auto.offset.reset=earliest", &e), AB_OK);
     assert_int_equal(kafka_conf_set(conf, "session.timeout.ms=6000", &e), AB_OK);
     assert_int_equal(kafka_conf_set(conf, "heartbeat.interval.ms=500", &e), AB_OK);
+    /* The mock holds a fetch for fetch.wait.max.ms (500 by default) when a
+     * partition has no more data; shorter rounds keep the test quick. */
+    assert_int_equal(kafka_conf_set(conf, "fetch.wait.max.ms=20", &e), AB_OK);
     rd_kafka_t *rk = rd_kafka_new(RD_KAFKA_CONSUMER, conf, why, sizeof why);
     assert_non_null(rk);
     conf = NULL;
@@ -253,8 +256,9 @@ static void consume_all(const char *bootstraps, const char *topic, int n_parts, 
     }
     rd_kafka_consumer_close(rk);
     rd_kafka_destroy(rk);
-    assert_int_equal(out->n, want);
-    assert_int_equal(total, (int64_t)want);
+    if (out->n != want || total != (int64_t)want)
+        fail_msg("'%s': consumed %zu messages, the partitions hold %lld, expected %zu", topic, out->n,
+                 (long long)total, want);
 }
 
 static void msgs_free(struct msgs *M)
@@ -466,9 +470,8 @@ static void test_kafka__publish_roundtrip(void **state)
     char *f1 = lines_write(&half1, false, huge), *f2 = lines_write(&half2, true, NULL);
     free(huge);
 
-    /* A tiny local queue: publishing must wait it out (QUEUE_FULL) many times. */
-    static const char *const props[] = {"linger.ms=10", "queue.buffering.max.messages=200"};
-    struct kafka_publisher *p = publisher(&c, "events", props, 2);
+    static const char *const props[] = {"linger.ms=10"};
+    struct kafka_publisher *p = publisher(&c, "events", props, 1);
     struct err e;
     err_clear(&e);
     assert_int_equal(kafka_publish_file(p, f1, &e), AB_OK);
@@ -480,7 +483,6 @@ static void test_kafka__publish_roundtrip(void **state)
     assert_int_equal(st->delivered, 3000);
     assert_int_equal(st->failed, 0);
     assert_int_equal(st->skipped_too_long, 1);
-    assert_true(st->queue_waits > 0);
     assert_non_null(strstr(st->first_skipped, ":1501"));
     assert_string_equal(st->first_error, "");
     kafka_publisher_free(p);
@@ -508,7 +510,12 @@ static void test_kafka__publish_survives_transient_errors(void **state)
     char *f = lines_write(&L, false, NULL);
     struct kafka_publisher *p = publisher(&c, "events", NULL, 0);
     /* The next produce requests fail: not leader twice, a dropped connection,
-     * a timeout; librdkafka retries each without losing or repeating. */
+     * a timeout; librdkafka retries each without losing or repeating. This
+     * holds because the publisher keeps one request in flight per broker: the
+     * mock does not check the idempotent producer's sequence numbers, so with
+     * several in flight a later batch overtakes a failed one, and librdkafka
+     * then takes the failed batch for written (measured: 1 of 2000 lost, or
+     * 29 duplicated, when the test ran slowly under valgrind). */
     rd_kafka_mock_push_request_errors(c.mc, APIKEY_PRODUCE, 4, RD_KAFKA_RESP_ERR_NOT_LEADER_FOR_PARTITION,
                                       RD_KAFKA_RESP_ERR_NOT_LEADER_FOR_PARTITION, RD_KAFKA_RESP_ERR__TRANSPORT,
                                       RD_KAFKA_RESP_ERR_REQUEST_TIMED_OUT);
@@ -525,6 +532,41 @@ static void test_kafka__publish_survives_transient_errors(void **state)
     struct msgs M = {NULL, 0, 0};
     consume_all(c.bootstraps, "events", 6, L.n, &M);
     check_roundtrip(&L, &M, 6);
+    msgs_free(&M);
+    unlink(f);
+    free(f);
+    lines_free(&L);
+    cluster_stop(&c);
+}
+
+static void test_kafka__publish_waits_out_a_full_queue(void **state)
+{
+    (void)state;
+    struct cluster c;
+    cluster_start(&c, 1);
+    assert_int_equal(rd_kafka_mock_topic_create(c.mc, "events", 2, 1), RD_KAFKA_RESP_ERR_NO_ERROR);
+    struct lines L;
+    lines_make(&L, 200, 10);
+    char *f = lines_write(&L, false, NULL);
+    /* A local queue of 50 messages and 100 ms per response: the queue is
+     * full long before the first acknowledgement can come back. */
+    static const char *const props[] = {"queue.buffering.max.messages=50"};
+    struct kafka_publisher *p = publisher(&c, "events", props, 1);
+    rd_kafka_mock_broker_set_rtt(c.mc, -1, 100);
+    struct err e;
+    err_clear(&e);
+    assert_int_equal(kafka_publish_file(p, f, &e), AB_OK);
+    if (kafka_publisher_flush(p, &e))
+        fail_msg("flush: %s", e.msg);
+    const struct kafka_publish_stats *st = kafka_publisher_stats(p);
+    assert_true(st->queue_waits > 0);
+    assert_int_equal(st->delivered, L.n);
+    kafka_publisher_free(p);
+    rd_kafka_mock_broker_set_rtt(c.mc, -1, 0);
+
+    struct msgs M = {NULL, 0, 0};
+    consume_all(c.bootstraps, "events", 2, L.n, &M);
+    check_roundtrip(&L, &M, 2);
     msgs_free(&M);
     unlink(f);
     free(f);
@@ -602,6 +644,7 @@ int main(void)
         cmocka_unit_test(test_kafka__topic_check_tells_created_from_existing),
         cmocka_unit_test(test_kafka__publish_roundtrip),
         cmocka_unit_test(test_kafka__publish_survives_transient_errors),
+        cmocka_unit_test(test_kafka__publish_waits_out_a_full_queue),
         cmocka_unit_test(test_kafka__publish_reports_permanent_errors),
         cmocka_unit_test(test_kafka__publish_stops_on_the_stop_flag),
     };
