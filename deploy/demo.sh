@@ -48,7 +48,8 @@ step "3. publishing the log into the topic, keyed by unit"
 step "4. watching the topic until it is drained (state in $D/state)"
 "$A" watch --config "$D/experiment.json" --brokers "$BS" --topic events \
     --state "$D/state" --drain \
-    --kafka session.timeout.ms=6000 --kafka heartbeat.interval.ms=500 > "$D/records.jsonl"
+    --kafka session.timeout.ms=6000 --kafka heartbeat.interval.ms=500 \
+    --kafka fetch.wait.max.ms=20 > "$D/records.jsonl"
 echo "$(wc -l < "$D/records.jsonl") records in $D/records.jsonl (the last is the final summary)"
 stop_broker
 

@@ -37,7 +37,7 @@ start_broker() {
 }
 
 # Client settings for the embedded broker: fast rebalances (see README, "Testing").
-KAFKA_TEST="--kafka session.timeout.ms=6000 --kafka heartbeat.interval.ms=500 --kafka reconnect.backoff.max.ms=1000"
+KAFKA_TEST="--kafka session.timeout.ms=6000 --kafka heartbeat.interval.ms=500 --kafka reconnect.backoff.max.ms=1000 --kafka fetch.wait.max.ms=20"
 
 # Writes a config and an invented log of $1 lines (a fictional tea shop's
 # banner experiment) to $T/exp.json and $T/log.jsonl.
