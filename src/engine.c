@@ -23,6 +23,49 @@ void engine_opts_default(struct engine_opts *o)
     o->n_shards = 1;
 }
 
+int engine_read_unit_key(const char *path, struct hash_key *key, struct err *e)
+{
+    int fd = open(path, O_RDONLY | O_CLOEXEC);
+    if (fd < 0)
+        return err_set(e, AB_EINPUT, "unit key '%s': %s", path, strerror(errno));
+    struct stat st;
+    if (fstat(fd, &st) != 0 || !S_ISREG(st.st_mode)) {
+        close(fd);
+        return err_set(e, AB_EINPUT, "unit key '%s': not a regular file", path);
+    }
+    unsigned char b[UNIT_KEY_BYTES];
+    size_t got = 0;
+    while (got < sizeof b) {
+        ssize_t k = read(fd, b + got, sizeof b - got);
+        if (k < 0 && errno == EINTR)
+            continue;
+        if (k < 0) {
+            int saved = errno;
+            close(fd);
+            explicit_bzero(b, sizeof b);
+            return err_set(e, AB_EINPUT, "unit key '%s': %s", path, strerror(saved));
+        }
+        if (k == 0)
+            break;
+        got += (size_t)k;
+    }
+    close(fd);
+    if (got < sizeof b) {
+        explicit_bzero(b, sizeof b);
+        return err_set(e, AB_EINPUT,
+                       "unit key '%s': holds %zu bytes, at least %d are needed (e.g. head -c 32 "
+                       "/dev/urandom > '%s')",
+                       path, got, UNIT_KEY_BYTES, path);
+    }
+    key->k0 = key->k1 = 0;
+    for (int i = 7; i >= 0; i--) {
+        key->k0 = (key->k0 << 8) | b[i];
+        key->k1 = (key->k1 << 8) | b[8 + i];
+    }
+    explicit_bzero(b, sizeof b);
+    return AB_OK;
+}
+
 int engine_init(struct engine *en, const struct engine_opts *o, int n_parts, struct err *e)
 {
     memset(en, 0, sizeof *en);
@@ -36,6 +79,8 @@ int engine_init(struct engine *en, const struct engine_opts *o, int n_parts, str
     if ((rc = config_load(o->config_path, &en->cfg, e)))
         return rc;
     if ((rc = layout_init(&en->lay, &en->cfg, o->lateness_us, o->horizon_us, e)))
+        return rc;
+    if (o->unit_key && (rc = engine_read_unit_key(o->unit_key, &en->lay.unit_key, e)))
         return rc;
     if (!(en->seq = malloc(sizeof *en->seq)))
         return err_set(e, AB_EINPUT, "out of memory");
@@ -134,6 +179,12 @@ int engine_record(struct engine *en, int64_t time, bool final, json_t **out, int
 
 static int print_record(struct engine *en, json_t *rec, struct err *e)
 {
+    /* --final-only computes every record (the sequential state depends on
+     * them) but prints only the final summary */
+    if (en->final_only && !json_is_true(json_object_get(rec, "final"))) {
+        json_decref(rec);
+        return AB_OK;
+    }
     char *text = json_dumps(rec, JSON_COMPACT | JSON_REAL_PRECISION(17));
     json_decref(rec);
     if (!text)
@@ -239,8 +290,6 @@ static int pass_boundaries(struct engine *en, int p, int64_t t, struct err *e)
     int64_t from = en->pmax[p];
     en->pmax[p] = t;
     en->idle[p] = false;
-    if (en->final_only)
-        return AB_OK;
     int64_t b = time_floor(t, en->every_us);
     /* a partition's first event opens no record: the stream has only begun */
     if (from != INT64_MIN && b > from && b > en->cfg.window_start) {

@@ -85,12 +85,21 @@ static int day_srm(struct readout *r, const struct config *cfg, const struct tal
         free(counts);
         return AB_EINPUT;
     }
+    /* days whose units all left (multi-arm units) are not tested nor counted in Holm's m */
+    int k = 0;
     for (size_t i = 0; i < t->n_days; i++) {
+        uint64_t any = 0;
+        for (int a = 0; a < cfg->n_arms; a++)
+            any |= t->days[i].units[a];
+        if (!any)
+            continue;
         char ts[40];
         time_format(t->days[i].day * US_PER_DAY, ts, sizeof ts);
-        snprintf(r->days[i].name, sizeof r->days[i].name, "%.10s", ts);
-        memcpy(counts[i], t->days[i].units, sizeof counts[i]);
+        snprintf(r->days[k].name, sizeof r->days[k].name, "%.10s", ts);
+        memcpy(counts[k], t->days[i].units, sizeof counts[k]);
+        k++;
     }
+    r->n_days = k;
     srm_parts(cfg, r->days, r->n_days, (const uint64_t(*)[CONFIG_MAX_ARMS])counts);
     free(counts);
     return AB_OK;
@@ -107,6 +116,11 @@ static int segment_srm(struct readout *r, const struct config *cfg, const struct
     int cap = 0;
     uint64_t(*counts)[CONFIG_MAX_ARMS] = NULL;
     for (size_t i = 0; i < t->n_segs; i++) {
+        uint64_t any = 0;
+        for (int a = 0; a < cfg->n_arms; a++)
+            any |= t->segs[i].units[a];
+        if (!any)
+            continue; /* a segment whose units all left is not tested */
         const char *s = t->segs[i].name;
         while (*s) {
             const char *end = strchr(s, '\x1f');
