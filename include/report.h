@@ -46,9 +46,6 @@ struct seqrun;
 json_t *report_record(const struct layout *lay, const struct tallies *t, const struct readout *r,
                       const struct seqrun *seq, int64_t time, bool final);
 
-/* Prints a record as one JSON line ("%.17g" numbers, null for non-finite). */
-int report_print(FILE *f, json_t *rec);
-
 /* A JSON number, or null when x is not finite. */
 json_t *json_num(double x);
 

@@ -342,9 +342,3 @@ json_t *report_record(const struct layout *lay, const struct tallies *t, const s
     return rec;
 }
 
-int report_print(FILE *f, json_t *rec)
-{
-    if (json_dumpf(rec, f, JSON_COMPACT | JSON_REAL_PRECISION(17)) || fputc('\n', f) == EOF)
-        return -1;
-    return 0;
-}
