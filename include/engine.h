@@ -37,6 +37,8 @@ struct engine_opts {
     const char *quarantine; /* file for rejected lines, or NULL */
     uint32_t shard, n_shards;
     bool final_only;        /* print only the final summary */
+    const char *unit_key;   /* --unit-key FILE: secret key for hashing unit ids, or NULL
+                               for the fixed default key (see engine_read_unit_key) */
 };
 
 struct engine {
@@ -69,7 +71,17 @@ struct engine {
 /* Sets defaults in *o. */
 void engine_opts_default(struct engine_opts *o);
 
-/* Loads the config and makes n_parts empty ledgers. */
+/* The minimum size of a --unit-key file; its first UNIT_KEY_BYTES bytes are the key. */
+#define UNIT_KEY_BYTES 16
+
+/* Reads the SipHash key for unit ids from the file at path: its first
+ * UNIT_KEY_BYTES bytes (k0 then k1, little-endian). Returns AB_OK, or
+ * AB_EINPUT with *e naming the file when it cannot be read, is not a regular
+ * file or is shorter than UNIT_KEY_BYTES. Never puts key bytes in a message. */
+int engine_read_unit_key(const char *path, struct hash_key *key, struct err *e);
+
+/* Loads the config and makes n_parts empty ledgers; with o->unit_key, unit
+ * ids are hashed with the key read from that file. */
 int engine_init(struct engine *en, const struct engine_opts *o, int n_parts, struct err *e);
 void engine_release(struct engine *en);
 

@@ -104,8 +104,11 @@ struct ledger *ledger_new(const struct layout *lay);
 void ledger_free(struct ledger *l);
 
 /* Applies one decoded event. Returns REJ_NONE, or REJ_UNKNOWN_ARM (the caller
- * counts it as a rejected line). Out of memory returns -1. Counts lines,
- * accepted and duplicates itself; the caller counts rejections via ledger_reject. */
+ * counts it as a rejected line). Out of memory returns -1 (on this call or a
+ * later one: the join of an event may happen a few events later, see
+ * ledger.c "Lookahead"; every other function sees every event passed in).
+ * Counts lines, accepted and duplicates itself; the caller counts rejections
+ * via ledger_reject. */
 int ledger_apply(struct ledger *l, const struct event *ev);
 
 /* Counts one line rejected by the decoder. */
@@ -124,6 +127,17 @@ size_t ledger_days(const struct ledger *l, const struct day_row **rows);
 size_t ledger_segments(const struct ledger *l, const struct seg_row **rows);
 size_t ledger_n_records(const struct ledger *l);
 size_t ledger_memory(const struct ledger *l);
+
+/* ledger_memory by part, in bytes of capacity (for the benchmark). */
+struct ledger_mem {
+    size_t records;  /* unit records (chunks allocated) */
+    size_t index;    /* open-addressing index of the records */
+    size_t pending;  /* pending-outcome arena */
+    size_t ids;      /* event-id table */
+    size_t other;    /* multi-arm table, day rows, lookahead ring */
+    size_t n_records;/* unit records in use */
+};
+void ledger_memory_parts(const struct ledger *l, struct ledger_mem *m);
 
 /* Calls fn for every unit counted in the tallies (exposed, one arm), in table
  * order, with its key, arm and the per-metric variables (layout offsets). */

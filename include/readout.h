@@ -43,6 +43,7 @@ struct srm_part {
     double units;     /* units in it */
     double p;         /* SRM p */
     double p_adj;     /* Holm-adjusted over the days (or segments) */
+    uint64_t arm_units[CONFIG_MAX_ARMS]; /* units per arm */
 };
 
 struct readout {

@@ -7,8 +7,14 @@
  * atomically: a temporary file in the same directory (mode 0600), fsync,
  * rename over the old name, fsync of the directory. A crash leaves either the
  * old snapshot or the new one, never a partial file under the real name.
- * Loading checks the magic, version, CRC and the config fingerprint before a
- * byte of the ledger is trusted.
+ * Loading checks the magic, version, CRC, the config fingerprint and the
+ * unit key before a byte of the ledger is trusted.
+ *
+ * Unit ids are hashed with the layout's unit key (hash.h). A state made with
+ * a secret key (--unit-key) carries the key's fingerprint in its meta
+ * ("unit_key": SipHash of a fixed text under the key, 16 hex digits) and is
+ * version 2; a state made with the default key has no such field and is
+ * version 1. A state is loaded only with the key it was made with.
  */
 #ifndef ABTALLY_STATE_H
 #define ABTALLY_STATE_H
@@ -20,7 +26,8 @@
 #include "ledger.h"
 
 #define STATE_SUFFIX ".abstate"
-#define STATE_VERSION 1
+#define STATE_VERSION 2         /* newest version: states made with --unit-key */
+#define STATE_VERSION_UNKEYED 1 /* states made with the default unit key */
 
 /* Where a ledger's events came from. */
 struct state_meta {

@@ -205,6 +205,7 @@ int cmd_check(int argc, char **argv)
         case O_STRICT: strict = true; break;
         case O_NOREC: no_record = true; break;
         case O_SERIES: series_path = optarg; break;
+        case O_UNIT_KEY: o.unit_key = optarg; break;
         case O_LATE:
         case O_HORIZON:
             if (duration_parse(optarg, c == O_LATE ? &o.lateness_us : &o.horizon_us))
@@ -301,7 +302,8 @@ int cmd_check(int argc, char **argv)
             bool colour = !out && isatty(STDOUT_FILENO) && !getenv("NO_COLOR");
             int w = !strcmp(format, "json")
                         ? (json_dumpf(rec, f, JSON_COMPACT | JSON_REAL_PRECISION(17)) || fputc('\n', f) == EOF)
-                                                                  : render_text(f, rec, colour);
+                    : !strcmp(format, "html") ? render_html(f, series, rec)
+                                              : render_text(f, rec, colour);
             if ((out && fclose(f)) || w)
                 rc = err_set(&e, AB_EINPUT, "output: write failed");
         }

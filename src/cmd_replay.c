@@ -35,6 +35,8 @@ static const char usage[] =
     "      --final-only         print only the final summary\n"
     "      --shard I/N          keep only the units of shard I of N (0 <= I < N), by unit hash\n"
     "      --save-state DIR     write the final state to DIR (for 'abtally merge' and 'check --state')\n"
+    "      --unit-key FILE      hash unit ids with the secret key in FILE (its first 16 bytes);\n"
+    "                           a state made with a key is read only with the same key\n"
     "      --progress, --no-progress  show a progress line on stderr (default: on a terminal)\n"
     "  -h, --help               this help\n"
     "      --version            print the version\n"
@@ -96,7 +98,7 @@ static void progress_show(struct progress *p, const struct source *s, bool end)
 
 int cmd_replay(int argc, char **argv)
 {
-    enum { O_EVERY = 256, O_LATE, O_HORIZON, O_QUAR, O_FINAL, O_SHARD, O_SAVE, O_PROG, O_NOPROG, O_VERSION };
+    enum { O_EVERY = 256, O_LATE, O_HORIZON, O_QUAR, O_FINAL, O_SHARD, O_SAVE, O_PROG, O_NOPROG, O_UNIT_KEY, O_VERSION };
     static const struct option opts[] = {
         {"config", required_argument, NULL, 'c'},
         {"every", required_argument, NULL, O_EVERY},
@@ -106,6 +108,7 @@ int cmd_replay(int argc, char **argv)
         {"final-only", no_argument, NULL, O_FINAL},
         {"shard", required_argument, NULL, O_SHARD},
         {"save-state", required_argument, NULL, O_SAVE},
+        {"unit-key", required_argument, NULL, O_UNIT_KEY},
         {"progress", no_argument, NULL, O_PROG},
         {"no-progress", no_argument, NULL, O_NOPROG},
         {"help", no_argument, NULL, 'h'},
@@ -140,6 +143,7 @@ int cmd_replay(int argc, char **argv)
                 return cli_error(AB_EUSAGE, "replay: --shard '%s': expected I/N with 0 <= I < N", optarg);
             break;
         case O_SAVE: save_dir = optarg; break;
+        case O_UNIT_KEY: o.unit_key = optarg; break;
         case O_PROG: pg.on = true; break;
         case O_NOPROG: pg.on = false; break;
         case 'h': return cli_usage(usage, 1);

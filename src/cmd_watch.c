@@ -55,6 +55,8 @@ static const char usage[] =
     "      --lateness DUR         out-of-order tolerance (default 1h)\n"
     "      --dedup-horizon DUR    id memory (default 24h)\n"
     "      --quarantine FILE      rejected lines: topic[partition]@offset TAB reason TAB text\n"
+    "      --unit-key FILE        hash unit ids with the secret key in FILE (its first 16\n"
+    "                             bytes); states are resumed only with the same key\n"
     "      --max-rate N           consume at most N events per second (gentle catch-up)\n"
     "      --kafka KEY=VALUE      any librdkafka property (TLS, SASL...); repeatable;\n"
     "                             values of secret properties are never printed\n"
@@ -241,6 +243,40 @@ static void log_progress(struct watch *w, bool force)
     w->events_at_log = w->events;
 }
 
+/* Replaces in msg (NUL-terminated, size bytes) every occurrence of the value
+ * of a secret --kafka property (kafka_is_secret: "password", "secret" or
+ * "key" in the name) with KAFKA_REDACTED: librdkafka's own messages may
+ * quote a value (e.g. the path in ssl.keystore.location). Values shorter
+ * than 3 bytes are left alone (they would blank out ordinary text). */
+static void scrub_secrets(char *msg, size_t size, char **props, int n_props)
+{
+    for (int i = 0; i < n_props; i++) {
+        const char *eq = strchr(props[i], '=');
+        if (!eq)
+            continue;
+        size_t klen = (size_t)(eq - props[i]);
+        char key[256];
+        if (klen >= sizeof key)
+            klen = sizeof key - 1;
+        memcpy(key, props[i], klen);
+        key[klen] = '\0';
+        const char *val = eq + 1;
+        size_t vlen = strlen(val);
+        if (!kafka_is_secret(key) || vlen < 3)
+            continue;
+        char *hit;
+        while ((hit = strstr(msg, val))) {
+            size_t rlen = strlen(KAFKA_REDACTED), tail = strlen(hit + vlen);
+            if ((size_t)(hit - msg) + rlen + tail + 1 > size) {
+                *hit = '\0'; /* no room: cut the message before the value */
+                break;
+            }
+            memmove(hit + rlen, hit + vlen, tail + 1);
+            memcpy(hit, KAFKA_REDACTED, rlen);
+        }
+    }
+}
+
 static int run(struct watch *w, const char *brokers, const char *group, char **props, int n_props)
 {
     char errstr[512];
@@ -269,6 +305,7 @@ static int run(struct watch *w, const char *brokers, const char *group, char **p
     w->rk = rd_kafka_new(RD_KAFKA_CONSUMER, conf, errstr, sizeof errstr);
     if (!w->rk) {
         rd_kafka_conf_destroy(conf);
+        scrub_secrets(errstr, sizeof errstr, props, n_props);
         return err_set(&w->err, AB_EINPUT, "consumer: %s", errstr);
     }
     conf = NULL; /* owned by the handle now */
@@ -370,7 +407,7 @@ static int parse_dur(const char *opt, const char *v, int64_t *out)
 
 int cmd_watch(int argc, char **argv)
 {
-    enum { O_EVERY = 256, O_LATE, O_HORIZON, O_QUAR, O_SNAP, O_DRAIN, O_EMIT, O_KAFKA, O_RESET, O_RATE, O_VERSION };
+    enum { O_EVERY = 256, O_LATE, O_HORIZON, O_QUAR, O_SNAP, O_DRAIN, O_EMIT, O_KAFKA, O_RESET, O_RATE, O_UNIT_KEY, O_VERSION };
     static const struct option opts[] = {
         {"config", required_argument, NULL, 'c'},
         {"brokers", required_argument, NULL, 'b'},
@@ -387,6 +424,7 @@ int cmd_watch(int argc, char **argv)
         {"quarantine", required_argument, NULL, O_QUAR},
         {"kafka", required_argument, NULL, O_KAFKA},
         {"max-rate", required_argument, NULL, O_RATE},
+        {"unit-key", required_argument, NULL, O_UNIT_KEY},
         {"quiet", no_argument, NULL, 'q'},
         {"help", no_argument, NULL, 'h'},
         {"version", no_argument, NULL, O_VERSION},
@@ -417,6 +455,7 @@ int cmd_watch(int argc, char **argv)
         case O_LATE: rc = parse_dur("--lateness", optarg, &w->o.lateness_us); break;
         case O_HORIZON: rc = parse_dur("--dedup-horizon", optarg, &w->o.horizon_us); break;
         case O_QUAR: w->o.quarantine = optarg; break;
+        case O_UNIT_KEY: w->o.unit_key = optarg; break;
         case O_RATE: {
             char *end;
             w->max_rate = strtod(optarg, &end);
@@ -466,8 +505,10 @@ int cmd_watch(int argc, char **argv)
             rc = kafka_conf_set_kv(pc, "bootstrap.servers", brokers, &w->err);
         for (int i = 0; !rc && i < n_props; i++)
             rc = kafka_conf_set(pc, props[i], &w->err);
-        if (!rc && !(w->emit = rd_kafka_new(RD_KAFKA_PRODUCER, pc, errstr, sizeof errstr)))
+        if (!rc && !(w->emit = rd_kafka_new(RD_KAFKA_PRODUCER, pc, errstr, sizeof errstr))) {
+            scrub_secrets(errstr, sizeof errstr, props, n_props);
             rc = err_set(&w->err, AB_EINPUT, "emit producer: %s", errstr);
+        }
         if (!w->emit)
             rd_kafka_conf_destroy(pc);
         w->en.on_record = emit_record;

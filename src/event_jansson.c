@@ -1,8 +1,14 @@
 /*
- * event_jansson.c — the event decoder (event.h) on Jansson.
+ * event_jansson.c — the reference event decoder (event_ref.h) on Jansson.
+ *
+ * It defines the contract of event.h by example: the fast decoder
+ * (event_simdjson.cc) must give the same reason and the same event for every
+ * line, which tests/test_decoder_diff.c checks, and it hands the lines it
+ * finds malformed to this decoder to name the reason. Speed does not matter
+ * here; clarity does.
  *
  * Every string of the event is copied into the decoder's own buffer, so no
- * json_t outlives decoder_decode(). Integers are read as doubles
+ * json_t outlives decoder_jansson_decode(). Integers are read as doubles
  * (JSON_DECODE_INT_AS_REAL) so that a huge integer is a number, not a syntax
  * error; times in epoch milliseconds must hold an integer value.
  * Duplicate keys make the line ambiguous and are rejected as not_json.
@@ -12,45 +18,21 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "event.h"
+#include "event_ref.h"
 #include "timefmt.h"
 
-struct decoder {
+struct decoder_ref {
     char *buf;  /* copies of the event's strings */
     size_t cap; /* bytes in buf */
     size_t len; /* bytes used */
 };
 
-static const char *const reject_names[REJ_COUNT] = {
-    [REJ_NONE] = "none",
-    [REJ_NOT_JSON] = "not_json",
-    [REJ_MISSING_FIELD] = "missing_field",
-    [REJ_BAD_TYPE] = "bad_type",
-    [REJ_UNKNOWN_KIND] = "unknown_kind",
-    [REJ_BAD_TIME] = "bad_time",
-    [REJ_NOT_FINITE] = "not_finite",
-    [REJ_TOO_LONG] = "too_long",
-    [REJ_UNKNOWN_ARM] = "unknown_arm",
-    [REJ_EMPTY] = "empty_line",
-};
-
-const char *reject_name(enum reject r)
+struct decoder_ref *decoder_jansson_new(void)
 {
-    return r >= 0 && r < REJ_COUNT ? reject_names[r] : "unknown";
+    return calloc(1, sizeof(struct decoder_ref));
 }
 
-bool str_eq(struct str s, const char *z)
-{
-    size_t n = strlen(z);
-    return s.p && s.n == n && memcmp(s.p, z, n) == 0;
-}
-
-struct decoder *decoder_new(void)
-{
-    return calloc(1, sizeof(struct decoder));
-}
-
-void decoder_free(struct decoder *d)
+void decoder_jansson_free(struct decoder_ref *d)
 {
     if (d) {
         free(d->buf);
@@ -59,7 +41,7 @@ void decoder_free(struct decoder *d)
 }
 
 /* Copies a Jansson string into the decoder buffer (sized beforehand). */
-static struct str keep(struct decoder *d, const json_t *s)
+static struct str keep(struct decoder_ref *d, const json_t *s)
 {
     size_t n = json_string_length(s);
     struct str r = {d->buf + d->len, (uint32_t)n};
@@ -69,7 +51,7 @@ static struct str keep(struct decoder *d, const json_t *s)
 }
 
 /* Required non-empty string field. */
-static enum reject get_str(struct decoder *d, json_t *o, const char *k, struct str *out)
+static enum reject get_str(struct decoder_ref *d, json_t *o, const char *k, struct str *out)
 {
     json_t *v = json_object_get(o, k);
     if (!v)
@@ -94,7 +76,7 @@ static enum reject decode_time(json_t *t, int64_t *us)
     return REJ_BAD_TYPE;
 }
 
-static enum reject decode_obj(struct decoder *d, json_t *o, struct event *ev)
+static enum reject decode_obj(struct decoder_ref *d, json_t *o, struct event *ev)
 {
     enum reject r;
     json_t *kind = json_object_get(o, "kind");
@@ -158,7 +140,7 @@ static enum reject decode_obj(struct decoder *d, json_t *o, struct event *ev)
     return REJ_NONE;
 }
 
-enum reject decoder_decode(struct decoder *d, const char *line, size_t len, struct event *ev)
+enum reject decoder_jansson_decode(struct decoder_ref *d, const char *line, size_t len, struct event *ev)
 {
     memset(ev, 0, sizeof *ev);
     ev->value = 1.0;

@@ -10,7 +10,19 @@
  *   pending       24-byte entries for outcomes a unit may still need, freed
  *                 when the watermark passes (see ledger.h).
  * Nothing is allocated per event in steady state: chunks, the index, the
- * pending arena and the id table grow geometrically and are reused.
+ * pending arena and the id table grow geometrically and are reused (the id
+ * table drops expired ids in place).
+ *
+ * Lookahead: with millions of units the index, the records and the id table
+ * are far bigger than the caches, and each event would wait for several
+ * memory reads in turn. So ledger_apply does what needs the event itself
+ * (hashing, the arm and outcome-name lookups, the segment name) at once,
+ * queues the result in a ring of LOOKAHEAD events and prefetches what it
+ * will touch; the event is applied when LOOKAHEAD more have arrived, by then
+ * from the cache. Events are applied in arrival order, and every function
+ * that reads or writes the state (all but ledger_apply and ledger_reject)
+ * first applies the events still queued, so callers see exactly the state of
+ * every event passed in.
  */
 #include "ledger.h"
 
@@ -55,6 +67,35 @@ struct idslot {
     int64_t t;  /* event time */
 };
 
+/* The segment name of an assignment's attrs: "key=value" pairs sorted by key,
+ * joined by 0x1f (see ledger.h); longer names go to SEG_OTHER. */
+#define SEG_NAME_MAX 512
+
+/* A queued event: what applying it needs, taken from the decoder's event
+ * (whose strings are gone by the time it is applied). */
+struct qev {
+    uint64_t key;   /* SipHash of the unit id */
+    uint64_t idh;   /* SipHash of the id (scoped by unit), when has_id */
+    int64_t t;      /* event time */
+    double value;   /* outcome value */
+    int32_t target; /* outcome: outcome-name index, -1 when no metric uses it */
+    int16_t arm;    /* assignment of this experiment: arm index; -1: other experiment */
+    uint8_t kind;   /* EV_ASSIGN or EV_OUTCOME */
+    bool has_id;
+    uint8_t hash_check; /* assignment: 0, or HASH_MATCH / HASH_MISMATCH (config hash re-check) */
+    uint16_t seg_n; /* assignment: bytes of seg (0: no attrs) */
+    bool seg_other; /* assignment: the attrs fall in SEG_OTHER */
+    char seg[SEG_NAME_MAX];
+};
+
+#define HASH_MATCH 1
+#define HASH_MISMATCH 2
+
+/* Events queued before they are applied (a power of two), and how far ahead
+ * of its application an event's unit record is prefetched. */
+#define LOOKAHEAD 16
+#define LOOKAHEAD_RECORD 8
+
 struct ledger {
     const struct layout *lay;
     const struct config *cfg;
@@ -89,6 +130,11 @@ struct ledger {
     uint64_t units[CONFIG_MAX_ARMS];
     struct moments *mom; /* [metric][arm] */
     struct counters cnt;
+    /* lookahead: events accepted, not applied yet (ring[(q_head + i) % LOOKAHEAD]) */
+    struct qev *ring;
+    uint32_t q_head, q_n;
+    bool failed;                                  /* out of memory while applying a queued event */
+    uint32_t event_len[2 * CONFIG_MAX_METRICS];   /* strlen of layout event names */
 };
 
 /* ---------------------------------------------------------------- layout */
@@ -270,6 +316,8 @@ static uint32_t pend_alloc(struct ledger *l)
     uint32_t i = l->pend_free;
     l->pend_free = l->pend[i].next;
     l->pend_used++;
+    if (l->pend_free) /* the next allocation's entry, likely far from cache */
+        __builtin_prefetch(&l->pend[l->pend_free], 1);
     return i;
 }
 
@@ -347,28 +395,38 @@ static uint16_t seg_find(struct ledger *l, const char *name, bool create)
     return (uint16_t)++l->n_segs;
 }
 
-static int attr_cmp(const void *a, const void *b)
+static int attr_cmp(const struct attr *x, const struct attr *y)
 {
-    const struct attr *x = a, *y = b;
     size_t n = x->key.n < y->key.n ? x->key.n : y->key.n;
     int c = memcmp(x->key.p, y->key.p, n);
     return c ? c : (x->key.n > y->key.n) - (x->key.n < y->key.n);
 }
 
-/* The segment of an assignment's attrs (0 when it has none). */
-static uint16_t seg_of(struct ledger *l, const struct event *ev)
+/* Puts the segment name of an assignment's attrs into q (seg_n 0: no attrs;
+ * seg_other: SEG_OTHER). Keys are distinct (the decoder refuses repeated
+ * keys), so the order is total; at most EVENT_MAX_ATTRS: insertion sort. */
+static void seg_name(const struct event *ev, struct qev *q)
 {
+    q->seg_n = 0;
+    q->seg_other = false;
     if (!ev->n_attrs)
-        return 0;
+        return;
     struct attr a[EVENT_MAX_ATTRS];
-    memcpy(a, ev->attrs, (size_t)ev->n_attrs * sizeof *a);
-    qsort(a, (size_t)ev->n_attrs, sizeof *a, attr_cmp);
-    char name[512];
-    size_t n = 0;
+    int na = 0;
     for (int i = 0; i < ev->n_attrs; i++) {
+        int j = na++;
+        for (; j > 0 && attr_cmp(&a[j - 1], &ev->attrs[i]) > 0; j--)
+            a[j] = a[j - 1];
+        a[j] = ev->attrs[i];
+    }
+    char *name = q->seg;
+    size_t n = 0;
+    for (int i = 0; i < na; i++) {
         size_t need = a[i].key.n + a[i].value.n + 2;
-        if (n + need >= sizeof name)
-            return seg_find(l, SEG_OTHER, true);
+        if (n + need >= SEG_NAME_MAX) {
+            q->seg_other = true;
+            return;
+        }
         if (i)
             name[n++] = '\x1f';
         memcpy(name + n, a[i].key.p, a[i].key.n);
@@ -379,8 +437,17 @@ static uint16_t seg_of(struct ledger *l, const struct event *ev)
     }
     name[n] = '\0';
     if (memchr(name, '\0', n))
+        q->seg_other = true;
+    else
+        q->seg_n = (uint16_t)n;
+}
+
+/* The segment of a queued assignment (0 when it has no attrs). */
+static uint16_t seg_of(struct ledger *l, const struct qev *q)
+{
+    if (q->seg_other)
         return seg_find(l, SEG_OTHER, true);
-    return seg_find(l, name, true);
+    return q->seg_n ? seg_find(l, q->seg, true) : 0;
 }
 
 /* ---------------------------------------------------------------- tallies */
@@ -458,8 +525,47 @@ static void recompute(struct ledger *l, struct urec *r)
 
 /* ---------------------------------------------------------------- ids */
 
+/* Drops the ids older than the horizon in place (the capacity stays), with
+ * no allocation and one sequential pass: starting after an empty slot (no
+ * probe run crosses it), each slot in turn is cleared when expired, or its
+ * id moved back to the first free slot from its home; every slot between
+ * the home and the id has been visited by then, so linear probing stays
+ * valid (the in-place variant of re-inserting every id). */
+static void ids_expire(struct ledger *l)
+{
+    int64_t cutoff = l->max_time == INT64_MIN ? INT64_MIN : l->max_time - l->lay->dedup_horizon_us;
+    size_t cap = l->ids_cap, mask = cap - 1, n = 0, start = 0;
+    while (start < cap && l->ids[start].h)
+        start++;
+    if (start == cap)
+        return; /* never: the table is at most half full */
+    for (size_t k = 1; k < cap; k++) {
+        size_t i = (start + k) & mask;
+        struct idslot *o = &l->ids[i];
+        if (!o->h)
+            continue;
+        if (o->t < cutoff) {
+            o->h = 0;
+            continue;
+        }
+        n++;
+        size_t s = o->h & mask;
+        while (s != i && l->ids[s].h)
+            s = (s + 1) & mask;
+        if (s != i) {
+            l->ids[s] = *o;
+            o->h = 0;
+        }
+    }
+    l->ids_n = n;
+}
+
 static int ids_rebuild(struct ledger *l, size_t cap)
 {
+    if (cap == l->ids_cap && l->ids) {
+        ids_expire(l);
+        return 0;
+    }
     struct idslot *ni = calloc(cap, sizeof *ni);
     if (!ni)
         return -1;
@@ -639,36 +745,34 @@ static void maybe_sweep(struct ledger *l)
 
 /* ---------------------------------------------------------------- apply */
 
-static int apply_assign(struct ledger *l, const struct event *ev, uint64_t key)
+static int apply_assign(struct ledger *l, const struct qev *q)
 {
     const struct config *cfg = l->cfg;
-    if (!str_eq(ev->exp, cfg->experiment)) {
+    if (q->arm < 0) {
         l->cnt.other_experiment++;
         return REJ_NONE;
     }
-    int arm = config_arm_index(cfg, ev->arm.p, ev->arm.n);
-    if (arm < 0)
-        return REJ_UNKNOWN_ARM;
+    int arm = q->arm;
     l->cnt.assignments++;
-    if (ev->time_us < cfg->window_start || ev->time_us >= cfg->window_end) {
+    if (q->t < cfg->window_start || q->t >= cfg->window_end) {
         l->cnt.outside_window++;
         return REJ_NONE;
     }
-    bool late = ev->time_us < watermark(l);
+    bool late = q->t < watermark(l);
     if (late)
         l->cnt.late_assignments++;
-    if (cfg->hash.enabled) {
+    if (q->hash_check) {
         l->cnt.hash_checked++;
-        if (rebucket_arm(cfg, ev->unit.p, ev->unit.n) != arm)
+        if (q->hash_check == HASH_MISMATCH)
             l->cnt.hash_mismatch++;
     }
-    struct urec *r = unit_find(l, key, true);
+    struct urec *r = unit_find(l, q->key, true);
     if (!r)
         return -1;
     if (r->arm == ARM_NONE) {
         r->arm = (uint8_t)arm;
-        r->expo = ev->time_us;
-        r->seg = seg_of(l, ev);
+        r->expo = q->t;
+        r->seg = seg_of(l, q);
         r->flags &= (uint8_t)~F_DEAD;
         l->cnt.units_seen[arm]++;
         recompute(l, r);
@@ -676,7 +780,7 @@ static int apply_assign(struct ledger *l, const struct event *ev, uint64_t key)
         return REJ_NONE;
     }
     if (arm != r->arm || (r->flags & F_MULTI)) {
-        struct multi *mm = multi_get(l, key);
+        struct multi *mm = multi_get(l, q->key);
         if (!mm)
             return -1;
         if (!(r->flags & F_MULTI)) {
@@ -692,12 +796,12 @@ static int apply_assign(struct ledger *l, const struct event *ev, uint64_t key)
             l->cnt.units_seen[arm]++;
         }
     }
-    if (ev->time_us < r->expo && !(r->flags & F_FINAL)) {
+    if (q->t < r->expo && !(r->flags & F_FINAL)) {
         bool counted = in_tally(r);
         if (counted)
             tally_unit(l, r, -1);
-        r->expo = ev->time_us;
-        r->seg = seg_of(l, ev);
+        r->expo = q->t;
+        r->seg = seg_of(l, q);
         recompute(l, r);
         if (counted)
             tally_unit(l, r, +1);
@@ -705,71 +809,50 @@ static int apply_assign(struct ledger *l, const struct event *ev, uint64_t key)
     return REJ_NONE;
 }
 
-static int apply_outcome_event(struct ledger *l, const struct event *ev, uint64_t key)
+static int apply_outcome_event(struct ledger *l, const struct qev *q)
 {
-    int e = -1;
-    for (int i = 0; i < l->lay->n_events; i++)
-        if (str_eq(ev->metric, l->lay->event_names[i])) {
-            e = i;
-            break;
-        }
+    int e = q->target;
     if (e < 0) {
         l->cnt.ignored_outcomes++;
         return REJ_NONE;
     }
     l->cnt.outcomes++;
-    struct urec *r = unit_find(l, key, false);
+    struct urec *r = unit_find(l, q->key, false);
     if (!r || r->arm == ARM_NONE) {
         int64_t wm = watermark(l);
         int64_t keep_from = wm == INT64_MIN ? INT64_MIN : wm - (l->cfg->has_covariate ? l->cfg->pre_us : 0);
-        if (ev->time_us < keep_from) {
-            if (ev->time_us >= l->cfg->window_start)
+        if (q->t < keep_from) {
+            if (q->t >= l->cfg->window_start)
                 l->cnt.orphan_outcomes++;
             return REJ_NONE;
         }
-        if (!r && !(r = unit_find(l, key, true)))
+        if (!r && !(r = unit_find(l, q->key, true)))
             return -1;
     }
     if (r->flags & F_FINAL) {
-        l->cnt.orphan_outcomes += is_orphan(l, ev->time_us, r->expo);
+        l->cnt.orphan_outcomes += is_orphan(l, q->t, r->expo);
     } else {
         uint32_t i = pend_alloc(l);
         if (!i)
             return -1;
-        l->pend[i] = (struct pent){ev->time_us, ev->value, r->pend, (uint32_t)e};
+        l->pend[i] = (struct pent){q->t, q->value, r->pend, (uint32_t)e};
         r->pend = i;
     }
     if (r->arm != ARM_NONE)
-        apply_outcome(l, r, ev->time_us, e, ev->value, in_tally(r));
+        apply_outcome(l, r, q->t, e, q->value, in_tally(r));
     return REJ_NONE;
 }
 
-int ledger_apply(struct ledger *l, const struct event *ev)
+/* Applies one queued event: the join as it stood before the lookahead. */
+static int apply_queued(struct ledger *l, const struct qev *q)
 {
-    l->cnt.lines++;
-    uint64_t key = siphash24(&l->lay->unit_key, ev->unit.p, ev->unit.n);
-    if (l->lay->n_shards > 1 && key % l->lay->n_shards != l->lay->shard) {
-        l->cnt.accepted++;
-        l->cnt.other_shard++;
-        return REJ_NONE;
-    }
-    if (ev->kind == EV_ASSIGN && str_eq(ev->exp, l->cfg->experiment) &&
-        config_arm_index(l->cfg, ev->arm.p, ev->arm.n) < 0) {
-        l->cnt.rejected[REJ_UNKNOWN_ARM]++;
-        return REJ_UNKNOWN_ARM;
-    }
-    l->cnt.accepted++;
-    if (ev->id.p) {
-        /* ids are scoped by unit: a unit's events all live in one partition
-         * or shard, so de-duplication is exact however the units are split */
-        struct hash_key k = {key, key ^ HASH_KEY_DEFAULT.k1};
-        uint64_t h = siphash24(&k, ev->id.p, ev->id.n);
-        int seen = id_seen(l, h, ev->time_us);
+    if (q->has_id) {
+        int seen = id_seen(l, q->idh, q->t);
         if (seen < 0)
             return -1;
         if (seen) {
             l->cnt.duplicates++;
-            struct urec *r = unit_find(l, key, false);
+            struct urec *r = unit_find(l, q->key, false);
             if (r && (r->flags & F_FINAL)) {
                 if (in_tally(r))
                     l->cnt.dup_by_arm[r->arm]++;
@@ -778,17 +861,115 @@ int ledger_apply(struct ledger *l, const struct event *ev)
                 uint32_t i = pend_alloc(l);
                 if (!i)
                     return -1;
-                l->pend[i] = (struct pent){ev->time_us, 0, r->pend, DUP_MARK};
+                l->pend[i] = (struct pent){q->t, 0, r->pend, DUP_MARK};
                 r->pend = i;
             }
             return REJ_NONE;
         }
     }
-    if (ev->time_us > l->max_time) {
-        l->max_time = ev->time_us;
+    if (q->t > l->max_time) {
+        l->max_time = q->t;
         maybe_sweep(l);
     }
-    return ev->kind == EV_ASSIGN ? apply_assign(l, ev, key) : apply_outcome_event(l, ev, key);
+    return q->kind == EV_ASSIGN ? apply_assign(l, q) : apply_outcome_event(l, q);
+}
+
+/* Applies the oldest queued event. */
+static int apply_oldest(struct ledger *l)
+{
+    struct qev *q = &l->ring[l->q_head];
+    l->q_head = (l->q_head + 1) & (LOOKAHEAD - 1);
+    l->q_n--;
+    if (l->failed || apply_queued(l, q) < 0) {
+        l->failed = true;
+        return -1;
+    }
+    return 0;
+}
+
+/* Applies every queued event (see "Lookahead" above). Reads of the state go
+ * through here; the ledger is never a const object (ledger_new allocates
+ * it), so a const accessor may settle its queue. */
+static void sync(const struct ledger *cl)
+{
+    struct ledger *l = (struct ledger *)cl;
+    while (l->q_n)
+        apply_oldest(l);
+}
+
+/* Prefetches the index slot of a unit and, once that has arrived, its record. */
+static void prefetch_index(const struct ledger *l, uint64_t key)
+{
+    if (l->index_cap)
+        __builtin_prefetch(&l->index[key & (l->index_cap - 1)]);
+}
+
+static void prefetch_record(const struct ledger *l, uint64_t key)
+{
+    if (l->index_cap) {
+        uint32_t i = l->index[key & (l->index_cap - 1)];
+        if (i)
+            __builtin_prefetch(rec_at(l, i - 1), 1);
+    }
+}
+
+int ledger_apply(struct ledger *l, const struct event *ev)
+{
+    if (l->failed)
+        return -1;
+    l->cnt.lines++;
+    uint64_t key = siphash24(&l->lay->unit_key, ev->unit.p, ev->unit.n);
+    if (l->lay->n_shards > 1 && key % l->lay->n_shards != l->lay->shard) {
+        l->cnt.accepted++;
+        l->cnt.other_shard++;
+        return REJ_NONE;
+    }
+    const struct config *cfg = l->cfg;
+    int arm = -1;
+    if (ev->kind == EV_ASSIGN && str_eq(ev->exp, cfg->experiment) &&
+        (arm = config_arm_index(cfg, ev->arm.p, ev->arm.n)) < 0) {
+        l->cnt.rejected[REJ_UNKNOWN_ARM]++;
+        return REJ_UNKNOWN_ARM;
+    }
+    l->cnt.accepted++;
+    /* everything that needs the event's strings happens now */
+    struct qev *q = &l->ring[(l->q_head + l->q_n) & (LOOKAHEAD - 1)];
+    q->key = key;
+    q->t = ev->time_us;
+    q->kind = (uint8_t)ev->kind;
+    q->has_id = ev->id.p != NULL;
+    if (q->has_id) {
+        /* ids are scoped by unit: a unit's events all live in one partition
+         * or shard, so de-duplication is exact however the units are split */
+        struct hash_key k = {key, key ^ HASH_KEY_DEFAULT.k1};
+        q->idh = siphash24(&k, ev->id.p, ev->id.n);
+        if (l->ids_cap)
+            __builtin_prefetch(&l->ids[(q->idh ? q->idh : 1) & (l->ids_cap - 1)]);
+    }
+    if (ev->kind == EV_ASSIGN) {
+        q->arm = (int16_t)arm;
+        q->hash_check = 0;
+        if (arm >= 0) {
+            seg_name(ev, q);
+            if (cfg->hash.enabled)
+                q->hash_check = rebucket_arm(cfg, ev->unit.p, ev->unit.n) != arm ? HASH_MISMATCH : HASH_MATCH;
+        }
+    } else {
+        q->value = ev->value;
+        q->target = -1;
+        for (int i = 0; i < l->lay->n_events; i++)
+            if (ev->metric.n == l->event_len[i] && !memcmp(ev->metric.p, l->lay->event_names[i], ev->metric.n)) {
+                q->target = i;
+                break;
+            }
+    }
+    prefetch_index(l, key);
+    l->q_n++;
+    if (l->q_n > LOOKAHEAD_RECORD)
+        prefetch_record(l, l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_RECORD) & (LOOKAHEAD - 1)].key);
+    if (l->q_n == LOOKAHEAD && apply_oldest(l) < 0)
+        return -1;
+    return REJ_NONE;
 }
 
 void ledger_reject(struct ledger *l, enum reject r)
@@ -799,6 +980,7 @@ void ledger_reject(struct ledger *l, enum reject r)
 
 void ledger_finish(struct ledger *l)
 {
+    sync(l);
     l->finished = true;
     sweep(l);
 }
@@ -816,10 +998,15 @@ struct ledger *ledger_new(const struct layout *lay)
     l->last_sweep = INT64_MIN;
     size_t nm = lay->cfg->n_metrics ? (size_t)lay->cfg->n_metrics : 1;
     l->mom = calloc(nm * CONFIG_MAX_ARMS, sizeof *l->mom);
-    if (!l->mom) {
+    l->ring = malloc(LOOKAHEAD * sizeof *l->ring);
+    if (!l->mom || !l->ring) {
+        free(l->mom);
+        free(l->ring);
         free(l);
         return NULL;
     }
+    for (int i = 0; i < lay->n_events; i++)
+        l->event_len[i] = (uint32_t)strlen(lay->event_names[i]);
     return l;
 }
 
@@ -839,6 +1026,7 @@ void ledger_free(struct ledger *l)
         free(l->segs[i].name);
     free(l->segs);
     free(l->mom);
+    free(l->ring);
     free(l);
 }
 
@@ -846,51 +1034,72 @@ void ledger_free(struct ledger *l)
 
 const struct counters *ledger_counters(const struct ledger *l)
 {
+    sync(l);
     return &l->cnt;
 }
 
 const struct moments *ledger_moments(const struct ledger *l, int metric, int arm)
 {
+    sync(l);
     return mom(l, metric, arm);
 }
 
 uint64_t ledger_units(const struct ledger *l, int arm)
 {
+    sync(l);
     return l->units[arm];
 }
 
 int64_t ledger_max_time(const struct ledger *l)
 {
+    sync(l);
     return l->max_time;
 }
 
 size_t ledger_days(const struct ledger *l, const struct day_row **rows)
 {
+    sync(l);
     *rows = l->days;
     return l->n_days;
 }
 
 size_t ledger_segments(const struct ledger *l, const struct seg_row **rows)
 {
+    sync(l);
     *rows = l->segs;
     return l->n_segs;
 }
 
 size_t ledger_n_records(const struct ledger *l)
 {
+    sync(l);
     return l->n_recs;
 }
 
 size_t ledger_memory(const struct ledger *l)
 {
+    sync(l);
     return l->n_chunks * CHUNK_RECS * l->lay->rec_size + l->index_cap * sizeof *l->index +
            (size_t)l->pend_cap * sizeof *l->pend + l->ids_cap * sizeof *l->ids +
-           l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days;
+           l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days +
+           LOOKAHEAD * sizeof *l->ring;
+}
+
+void ledger_memory_parts(const struct ledger *l, struct ledger_mem *m)
+{
+    sync(l);
+    m->records = l->n_chunks * CHUNK_RECS * l->lay->rec_size;
+    m->index = l->index_cap * sizeof *l->index;
+    m->pending = (size_t)l->pend_cap * sizeof *l->pend;
+    m->ids = l->ids_cap * sizeof *l->ids;
+    m->other = l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days + LOOKAHEAD * sizeof *l->ring;
+    m->n_records = l->n_recs;
 }
 
 void ledger_each_unit(const struct ledger *l,
                       void (*fn)(void *ctx, uint64_t key, int arm, const double *values), void *ctx)
 {
+    sync(l);
     for (uint32_t i = 0; i < l->n_recs; i++) {
         const struct urec *r = rec_at(l, i);
         if (in_tally(r))
@@ -921,6 +1130,9 @@ static void put_u64(struct wr *o, uint64_t v)
 
 int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx)
 {
+    sync(l);
+    if (l->failed)
+        return -1; /* an event was lost for want of memory: no state to save */
     struct wr o = {w, ctx, 0};
     const struct config *cfg = l->cfg;
     uint32_t hdr[4] = {SNAP_TAG, (uint32_t)l->lay->rec_size, (uint32_t)cfg->n_metrics, (uint32_t)cfg->n_arms};
@@ -998,6 +1210,13 @@ static struct ledger *load_fail(struct ledger *l, struct err *e, const char *why
     return NULL;
 }
 
+/* A time a saved ledger may hold: an event time (years 1900..9999, see
+ * timefmt.h). Anything else would make later time arithmetic overflow. */
+static bool is_event_time(int64_t t)
+{
+    return t >= TIME_MIN_US && t <= TIME_MAX_US;
+}
+
 struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len, struct err *e)
 {
     const struct config *cfg = lay->cfg;
@@ -1017,6 +1236,13 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     l->max_time = times[0];
     l->last_sweep = times[1];
     l->finished = take_u64(&r) != 0;
+    /* max_time: none yet or an event time; last_sweep: none yet, a watermark
+     * (event time − some lateness ≤ 1e17 µs) or, once finished, INT64_MAX */
+    if (!(l->max_time == INT64_MIN || is_event_time(l->max_time)) ||
+        !(l->last_sweep == INT64_MIN || l->last_sweep == INT64_MAX ||
+          (l->last_sweep >= TIME_MIN_US - INT64_C(100000000000000000) && l->last_sweep <= TIME_MAX_US)) ||
+        (l->finished && l->last_sweep != INT64_MAX))
+        return load_fail(l, e, "times out of range");
     take(&r, l->units, sizeof l->units);
     for (int m = 0; m < cfg->n_metrics; m++)
         take(&r, mom(l, m, 0), (size_t)cfg->n_arms * sizeof(struct moments));
@@ -1028,9 +1254,10 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
             return load_fail(l, e, "out of memory");
         take(&r, l->days, nd * sizeof *l->days);
         l->n_days = l->days_cap = nd;
-        for (size_t i = 1; i < nd; i++)
-            if (l->days[i].day <= l->days[i - 1].day)
-                return load_fail(l, e, "days out of order");
+        for (size_t i = 0; i < nd; i++)
+            if ((i && l->days[i].day <= l->days[i - 1].day) ||
+                l->days[i].day > TIME_MAX_US / US_PER_DAY || l->days[i].day < TIME_MIN_US / US_PER_DAY - 1)
+                return load_fail(l, e, "days out of order or range");
     }
     uint64_t ns = take_u64(&r);
     if (r.bad || ns > SEG_MAX + 1)
@@ -1059,6 +1286,9 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
         u->pend = 0;
         if ((u->arm != ARM_NONE && u->arm >= cfg->n_arms) || (u->flags & F_DEAD) || u->seg > l->n_segs)
             return load_fail(l, e, "a unit has an impossible arm or flag");
+        /* an arm and an exposure time are set together, by an assignment */
+        if ((u->arm == ARM_NONE) != (u->expo == NO_TIME) || !(u->expo == NO_TIME || is_event_time(u->expo)))
+            return load_fail(l, e, "a unit has an impossible exposure time");
     }
     uint64_t np = take_u64(&r);
     if (r.bad || np > r.left / 24)
@@ -1066,7 +1296,8 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     for (uint64_t i = 0; i < np; i++) {
         struct { uint32_t rec, ev; int64_t t; double v; } pe;
         take(&r, &pe, sizeof pe);
-        if (r.bad || pe.rec >= l->n_recs || (pe.ev >= (uint32_t)lay->n_events && pe.ev != DUP_MARK))
+        if (r.bad || pe.rec >= l->n_recs || (pe.ev >= (uint32_t)lay->n_events && pe.ev != DUP_MARK) ||
+            !is_event_time(pe.t))
             return load_fail(l, e, "a pending outcome points nowhere");
         uint32_t k = pend_alloc(l);
         if (!k)
@@ -1091,7 +1322,7 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     for (uint64_t i = 0; i < ni; i++) {
         struct idslot s;
         take(&r, &s, sizeof s);
-        if (r.bad || !s.h)
+        if (r.bad || !s.h || !is_event_time(s.t))
             return load_fail(l, e, "bad id entry");
         size_t q = s.h & (cap - 1);
         while (l->ids[q].h)
@@ -1118,6 +1349,8 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
 
 int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
 {
+    sync(dst);
+    sync(src);
     const struct config *cfg = dst->cfg;
     if (dst->lay->rec_size != src->lay->rec_size)
         return err_set(e, AB_EINPUT, "states have different layouts");

@@ -57,6 +57,7 @@ static void srm_parts(const struct config *cfg, struct srm_part *parts, int n,
             tot += c[a] = (double)counts[i][a];
         struct srm_result s;
         srm_test(c, w, cfg->n_arms, &s);
+        memcpy(parts[i].arm_units, counts[i], sizeof parts[i].arm_units);
         parts[i].units = tot;
         parts[i].p = s.p;
         if (p)

@@ -246,13 +246,17 @@ static json_t *metric_rows(const struct layout *lay, const struct tallies *t, co
     return rows;
 }
 
-static json_t *srm_parts(const struct srm_part *parts, int n, const char *key)
+static json_t *srm_parts(const struct config *cfg, const struct srm_part *parts, int n, const char *key)
 {
     json_t *a = json_array();
     for (int i = 0; i < n; i++) {
         json_t *o = json_object();
         json_object_set_new(o, key, json_string(parts[i].name));
         json_object_set_new(o, "units", json_integer((json_int_t)parts[i].units));
+        json_t *ba = json_object();
+        for (int k = 0; k < cfg->n_arms; k++)
+            json_object_set_new(ba, cfg->arms[k].name, json_integer((json_int_t)parts[i].arm_units[k]));
+        json_object_set_new(o, "by_arm", ba);
         json_object_set_new(o, "p", json_num(parts[i].p));
         json_object_set_new(o, "p_adjusted", json_num(parts[i].p_adj));
         json_array_append_new(a, o);
@@ -260,7 +264,7 @@ static json_t *srm_parts(const struct srm_part *parts, int n, const char *key)
     return a;
 }
 
-static json_t *srm_json(const struct readout *rd)
+static json_t *srm_json(const struct config *cfg, const struct readout *rd)
 {
     static const char *const tests[] = {"none", "chi2", "binomial", "insufficient"};
     json_t *o = json_object();
@@ -270,8 +274,8 @@ static json_t *srm_json(const struct readout *rd)
     json_object_set_new(o, "test", json_string(tests[rd->srm.test & 3]));
     json_object_set_new(o, "p_seq", json_num(rd->p_seq));
     json_object_set_new(o, "alarm", json_boolean(rd->srm_alarm));
-    json_object_set_new(o, "by_day", srm_parts(rd->days, rd->n_days, "day"));
-    json_object_set_new(o, "by_segment", srm_parts(rd->segments, rd->n_segments, "segment"));
+    json_object_set_new(o, "by_day", srm_parts(cfg, rd->days, rd->n_days, "day"));
+    json_object_set_new(o, "by_segment", srm_parts(cfg, rd->segments, rd->n_segments, "segment"));
     return o;
 }
 
@@ -334,7 +338,7 @@ json_t *report_record(const struct layout *lay, const struct tallies *t, const s
     for (int a = 0; a < cfg->n_arms; a++)
         json_object_set_new(units, cfg->arms[a].name, json_integer((json_int_t)t->units[a]));
     json_object_set_new(rec, "units", units);
-    json_object_set_new(rec, "srm", srm_json(rd));
+    json_object_set_new(rec, "srm", srm_json(cfg, rd));
     json_object_set_new(rec, "metrics", metric_rows(lay, t, rd, seq));
     if (seq && cfg->seq.method == SEQ_SPENDING)
         json_object_set_new(rec, "looks", seqrun_looks_json(seq));

@@ -8,6 +8,7 @@
 #include <errno.h>
 #include <fcntl.h>
 #include <jansson.h>
+#include <stdbool.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -44,15 +45,39 @@ static int write_blocks(void *ctx, const void *p, size_t n)
     return 0;
 }
 
+/* True when lay hashes unit ids with a key of its own (--unit-key). */
+static bool is_keyed(const struct layout *lay)
+{
+    return lay->unit_key.k0 != HASH_KEY_DEFAULT.k0 || lay->unit_key.k1 != HASH_KEY_DEFAULT.k1;
+}
+
+/* The fingerprint of lay's unit key as 16 hex digits: SipHash of a fixed
+ * text under the key. It tells keys apart and reveals nothing of the key. */
+static void key_fingerprint(const struct layout *lay, char out[24])
+{
+    static const char text[] = "abtally unit key fingerprint";
+    snprintf(out, 24, "%016llx",
+             (unsigned long long)siphash24(&lay->unit_key, text, sizeof text - 1));
+}
+
 static json_t *meta_json(const struct state_meta *m, const struct layout *lay)
 {
     char digest[24];
     snprintf(digest, sizeof digest, "%016llx", (unsigned long long)lay->digest);
-    return json_pack("{s:s, s:s, s:s, s:s, s:i, s:i, s:I, s:I, s:I}", "experiment",
-                     lay->cfg->experiment, "config_digest", digest, "source", m->source, "topic",
-                     m->topic, "partition", (int)m->partition, "n_shards", (int)m->n_shards,
-                     "offset", (json_int_t)m->offset, "lateness_us", (json_int_t)m->lateness_us,
-                     "horizon_us", (json_int_t)m->horizon_us);
+    json_t *j = json_pack("{s:s, s:s, s:s, s:s, s:i, s:i, s:I, s:I, s:I}", "experiment",
+                          lay->cfg->experiment, "config_digest", digest, "source", m->source,
+                          "topic", m->topic, "partition", (int)m->partition, "n_shards",
+                          (int)m->n_shards, "offset", (json_int_t)m->offset, "lateness_us",
+                          (json_int_t)m->lateness_us, "horizon_us", (json_int_t)m->horizon_us);
+    if (j && is_keyed(lay)) {
+        char fp[24];
+        key_fingerprint(lay, fp);
+        if (json_object_set_new(j, "unit_key", json_string(fp))) {
+            json_decref(j);
+            return NULL;
+        }
+    }
+    return j;
 }
 
 int state_save(const char *dir, const char *name, const struct state_meta *meta,
@@ -80,7 +105,10 @@ int state_save(const char *dir, const char *name, const struct state_meta *meta,
         return err_set(e, AB_EINPUT, "state '%s': %s", tmp, strerror(errno));
     }
     setvbuf(o.f, NULL, _IOFBF, 1 << 20);
-    uint32_t ver = STATE_VERSION, mlen = (uint32_t)strlen(mtext);
+    /* a keyed state is version 2, so that readers of version 1 only (which
+     * know no unit key) refuse it rather than misread its hashes */
+    uint32_t ver = is_keyed(lay) ? STATE_VERSION : STATE_VERSION_UNKEYED;
+    uint32_t mlen = (uint32_t)strlen(mtext);
     int rc = out_write(&o, MAGIC, 8) || out_write(&o, &ver, 4) || out_write(&o, &mlen, 4) ||
              out_write(&o, mtext, mlen) || ledger_save(l, write_blocks, &o);
     free(mtext);
@@ -150,8 +178,8 @@ static int read_all(const char *path, unsigned char **buf, size_t *len, struct e
     return AB_OK;
 }
 
-static int parse_meta(const char *path, const char *text, size_t n, const struct layout *lay,
-                      struct state_meta *m, struct err *e)
+static int parse_meta(const char *path, uint32_t ver, const char *text, size_t n,
+                      const struct layout *lay, struct state_meta *m, struct err *e)
 {
     json_error_t je;
     json_t *j = json_loadb(text, n, 0, &je);
@@ -165,8 +193,11 @@ static int parse_meta(const char *path, const char *text, size_t n, const struct
                           "partition", &part, "n_shards", &shards, "offset", &off, "lateness_us",
                           &late, "horizon_us", &hor);
     int rc = AB_OK;
-    char want[24];
+    char want[24], fp[24];
     snprintf(want, sizeof want, "%016llx", (unsigned long long)lay->digest);
+    key_fingerprint(lay, fp);
+    json_t *uk = json_object_get(j, "unit_key");
+    const char *have_fp = json_string_value(uk);
     if (bad)
         rc = err_set(e, AB_EINPUT, "state '%s': header lacks a field", path);
     else if (strcmp(exp, lay->cfg->experiment))
@@ -176,6 +207,23 @@ static int parse_meta(const char *path, const char *text, size_t n, const struct
         rc = err_set(e, AB_EINPUT,
                      "state '%s': made with a different config (arms, window, covariate or metrics "
                      "changed); start over with --reset or use the config it was made with",
+                     path);
+    else if (uk ? !have_fp || ver < STATE_VERSION : ver >= STATE_VERSION)
+        rc = err_set(e, AB_EINPUT, "state '%s': header has a bad unit_key field", path);
+    else if (have_fp && !is_keyed(lay))
+        rc = err_set(e, AB_EINPUT,
+                     "state '%s': made with a secret unit key; give the same --unit-key FILE "
+                     "(or start over with --reset)",
+                     path);
+    else if (!have_fp && is_keyed(lay))
+        rc = err_set(e, AB_EINPUT,
+                     "state '%s': made without --unit-key; drop --unit-key to read it (or "
+                     "start over with --reset)",
+                     path);
+    else if (have_fp && strcmp(have_fp, fp))
+        rc = err_set(e, AB_EINPUT,
+                     "state '%s': made with a different unit key (--unit-key); give the key "
+                     "file it was made with (or start over with --reset)",
                      path);
     else {
         memset(m, 0, sizeof *m);
@@ -216,13 +264,13 @@ int state_load(const char *path, const struct layout *lay, struct state_meta *me
                      "state '%s': checksum mismatch (truncated or corrupted); restore a backup or "
                      "start over with --reset",
                      path);
-    else if (ver != STATE_VERSION)
-        rc = err_set(e, AB_EINPUT, "state '%s': version %u, this abtally reads version %d", path,
-                     ver, STATE_VERSION);
+    else if (ver < STATE_VERSION_UNKEYED || ver > STATE_VERSION)
+        rc = err_set(e, AB_EINPUT, "state '%s': version %u, this abtally reads versions %d to %d",
+                     path, ver, STATE_VERSION_UNKEYED, STATE_VERSION);
     else if (mlen > MAX_META || 16 + (size_t)mlen + 4 > n)
         rc = err_set(e, AB_EINPUT, "state '%s': header length out of range", path);
     else
-        rc = parse_meta(path, (const char *)b + 16, mlen, lay, meta, e);
+        rc = parse_meta(path, ver, (const char *)b + 16, mlen, lay, meta, e);
     if (!rc) {
         struct ledger *l = ledger_load(lay, b + 16 + mlen, n - 20 - mlen, e);
         if (!l) {
