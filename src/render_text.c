@@ -144,5 +144,38 @@ int render_text(FILE *f, const json_t *rec, bool colour)
     fprintf(f, "%s  (g) guardrail: p is one-sided for harm; p adj is Holm across primary metrics "
                "(guardrails: across guardrails)%s\n",
             paint(colour, C_DIM), paint(colour, C_OFF));
+    /* the sequential test, when the config asks for one */
+    bool head = false;
+    json_array_foreach(rows, k, r)
+    {
+        const char *v = json_string_value(json_object_get(r, "verdict"));
+        if (!v)
+            continue;
+        if (!head) {
+            fprintf(f, "\nSequential test\n");
+            head = true;
+        }
+        char what[160];
+        const json_t *b = json_object_get(r, "bound"), *cs = json_object_get(r, "cs");
+        const json_t *ca = json_object_get(r, "ci_always");
+        if (json_is_number(b)) {
+            char z[32], bd[32], info[32];
+            num(z, sizeof z, json_object_get(r, "z"), "%+.3f");
+            num(bd, sizeof bd, b, "%.3f");
+            num(info, sizeof info, json_object_get(r, "info"), "%.2f");
+            snprintf(what, sizeof what, "z %s against bound %s at information fraction %s", z, bd, info);
+        } else if (json_is_array(cs) || json_is_array(ca)) {
+            char iv[80], pa[32];
+            interval(iv, sizeof iv, json_is_array(cs) ? cs : ca, "%.4g");
+            pval(pa, sizeof pa, json_object_get(r, "p_always"));
+            snprintf(what, sizeof what, "always-valid interval %s, always-valid p %s", iv, pa);
+        } else {
+            snprintf(what, sizeof what, "no look yet");
+        }
+        bool crossed = !strncmp(v, "crossed", 7);
+        fprintf(f, "  %-18s %-12s %s%-14s%s %s\n", json_string_value(json_object_get(r, "metric")),
+                json_string_value(json_object_get(r, "arm")), paint(colour && crossed, C_GRN), v,
+                paint(colour && crossed, C_OFF), what);
+    }
     return ferror(f) ? -1 : 0;
 }

@@ -227,11 +227,13 @@ json_t *seqrun_to_json(const struct seqrun *s)
             if (a == cfg->control)
                 continue;
             const struct seq_cell *c = &s->cell[m][a];
-            json_array_append_new(cells, json_pack("{s:s, s:s, s:i, s:o, s:o, s:o, s:o}", "metric",
-                                                   cfg->metrics[m].name, "arm", cfg->arms[a].name,
-                                                   "verdict", c->verdict, "p_always", json_num(c->p_always),
-                                                   "lo", json_num(c->lo), "hi", json_num(c->hi),
-                                                   "tau2", json_num(c->tau2)));
+            json_array_append_new(cells, json_pack("{s:s, s:s, s:i, s:o, s:o, s:o, s:o, s:o, s:o, s:o}",
+                                                   "metric", cfg->metrics[m].name, "arm",
+                                                   cfg->arms[a].name, "verdict", c->verdict,
+                                                   "p_always", json_num(c->p_always), "lo", json_num(c->lo),
+                                                   "hi", json_num(c->hi), "tau2", json_num(c->tau2),
+                                                   "info", json_num(c->info), "z", json_num(c->z),
+                                                   "bound", json_num(c->bound)));
         }
     json_t *o = json_object();
     json_object_set_new(o, "experiment", json_string(cfg->experiment));
@@ -294,6 +296,9 @@ int seqrun_from_json(struct seqrun *s, const json_t *j, struct err *e)
             x->lo = num_or(json_object_get(c, "lo"), -INFINITY);
             x->hi = num_or(json_object_get(c, "hi"), INFINITY);
             x->tau2 = num_or(json_object_get(c, "tau2"), 0);
+            x->info = num_or(json_object_get(c, "info"), NAN);
+            x->z = num_or(json_object_get(c, "z"), NAN);
+            x->bound = num_or(json_object_get(c, "bound"), NAN);
         }
     }
     return AB_OK;
