@@ -19,7 +19,7 @@
 
 /* Earliest and latest accepted times: years 1900..9999 (anything else is bad_time). */
 #define TIME_MIN_US (INT64_C(-2208988800) * US_PER_SEC)
-#define TIME_MAX_US (INT64_C(253402300799) * US_PER_SEC)
+#define TIME_MAX_US (INT64_C(253402300800) * US_PER_SEC - 1) /* 9999-12-31T23:59:59.999999Z */
 
 /* Parses an RFC 3339 date-time of n bytes into *us. Returns 0, or -1 when malformed. */
 int time_parse_rfc3339(const char *s, size_t n, int64_t *us);

@@ -24,6 +24,7 @@ static const char usage[] =
     "options:\n"
     "  -c, --config FILE   the experiment config the states were made with (required)\n"
     "  -o, --out FILE      write the merged state (a path ending in .abstate)\n"
+    "      --unit-key FILE the secret unit key the states were made with\n"
     "  -h, --help          this help\n"
     "      --version       print the version\n"
     "\n"
@@ -37,6 +38,7 @@ int cmd_merge(int argc, char **argv)
     static const struct option opts[] = {
         {"config", required_argument, NULL, 'c'},
         {"out", required_argument, NULL, 'o'},
+        {"unit-key", required_argument, NULL, 'k'},
         {"help", no_argument, NULL, 'h'},
         {"version", no_argument, NULL, 'V'},
         {NULL, 0, NULL, 0},
@@ -51,6 +53,7 @@ int cmd_merge(int argc, char **argv)
         switch (c) {
         case 'c': o.config_path = optarg; break;
         case 'o': out = optarg; break;
+        case 'k': o.unit_key = optarg; break;
         case 'h': return cli_usage(usage, 1);
         case 'V': return cli_version();
         default: return cli_usage(usage, 0);

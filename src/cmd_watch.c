@@ -286,6 +286,8 @@ static int run(struct watch *w, const char *brokers, const char *group, char **p
         {"enable.auto.commit", "false"},
         {"auto.offset.reset", "earliest"},
         {"enable.partition.eof", "true"},
+        /* never let librdkafka run the Kerberos kinit command through a shell */
+        {"sasl.kerberos.min.time.before.relogin", "0"},
     };
     int rc = AB_OK;
     if (brokers)

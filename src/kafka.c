@@ -283,6 +283,8 @@ struct kafka_publisher *kafka_publisher_new(const char *brokers, const char *top
     if ((brokers && kafka_conf_set_kv(conf, "bootstrap.servers", brokers, e)) ||
         kafka_conf_set_kv(conf, "partitioner", "murmur2_random", e) ||
         kafka_conf_set_kv(conf, "enable.idempotence", "true", e) ||
+        /* never let librdkafka run the Kerberos kinit command through a shell */
+        kafka_conf_set_kv(conf, "sasl.kerberos.min.time.before.relogin", "0", e) ||
         /* One request in flight per broker: exactly once and in order even
          * against the embedded broker, which does not check sequence numbers
          * (see kafka.h). */

@@ -759,7 +759,11 @@ static void test_event__time_accepted_forms(void **state)
             fail_msg("%s: rc %d, got %lld, expected %lld", ok[i].text, rc, (long long)us, (long long)ok[i].us);
     }
     assert_int_equal(TIME_MIN_US, INT64_C(-2208988800000000));
-    assert_int_equal(TIME_MAX_US, INT64_C(253402300799000000));
+    /* the last microsecond of year 9999: 253402300799 s (above) + 999999 µs */
+    assert_int_equal(TIME_MAX_US, INT64_C(253402300799999999));
+    int64_t us = 0;
+    assert_int_equal(time_parse_rfc3339("9999-12-31T23:59:59.5Z", 22, &us), 0);
+    assert_int_equal(us, INT64_C(253402300799500000));
 }
 
 static void test_event__time_epoch_ms(void **state)

@@ -3,7 +3,9 @@
 # on any memory error or leak (definite, indirect or possible):
 #   replay of every fixtures/replay/*/input.jsonl (running records, a
 #   quarantine, a saved state), check --state of that state (text and json),
-#   check of the log itself, merge of two shard states, srm and plan.
+#   check of the log itself, merge of two shard states, gzip and junk input,
+#   a missing config; publish and 'watch --drain' against the embedded broker
+#   (which itself runs outside valgrind); srm and plan.
 # Usage: sh tests/valgrind.sh [BUILD]   (BUILD defaults to build)
 set -eu
 BUILD=${1:-build}
