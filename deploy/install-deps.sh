@@ -1,8 +1,11 @@
 #!/bin/sh
-# Installs the Debian packages abtally needs to build and test, when any is
-# missing. Safe to run again: it does nothing when all are present.
+# Installs Debian packages when any is missing: by default those abtally
+# needs to build and test; with arguments, those packages instead (CI's
+# extra tools: deploy/install-ci-deps.sh). Safe to run again: it does
+# nothing when all are present.
 set -eu
 PKGS="build-essential pkg-config librdkafka-dev libjansson-dev libgsl-dev libcmocka-dev zlib1g-dev libssl-dev libsimdjson-dev"
+[ "$#" -gt 0 ] && PKGS="$*"
 missing=""
 for p in $PKGS; do
     dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing="$missing $p"

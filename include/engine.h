@@ -110,6 +110,15 @@ int engine_emit(struct engine *en, int64_t time, bool final, struct err *e);
 int engine_record(struct engine *en, int64_t time, bool final, json_t **out, int *verdict,
                   struct err *e);
 
+struct source;
+
+/* Feeds every line of the file at path ("-": stdin) to partition 0. When tick
+ * is not NULL it is called every 65536 lines (for a progress line). *bytes
+ * (may be NULL) receives the bytes of the file consumed. */
+int engine_read_file(struct engine *en, const char *path,
+                     void (*tick)(void *ctx, const struct source *s, uint64_t lines), void *ctx,
+                     uint64_t *bytes, struct err *e);
+
 /* Settles the ledgers and emits the final summary. */
 int engine_finish(struct engine *en, struct err *e);
 

@@ -266,23 +266,8 @@ int cmd_check(int argc, char **argv)
         for (int i = 0; !rc && i < set.n; i++)
             rc = ledger_absorb(en.parts[0], set.ledgers[i], &e);
     }
-    for (int i = optind; !rc && i < argc; i++) {
-        struct source *s = source_open(argv[i], &e);
-        if (!s) {
-            rc = e.code;
-            break;
-        }
-        const char *line;
-        size_t len;
-        bool too_long;
-        int got;
-        while ((got = source_next(s, &line, &len, &too_long, &e)) == 1)
-            if ((rc = engine_line(&en, 0, line, len, too_long, source_name(s), source_line(s), &e)))
-                break;
-        if (got < 0)
-            rc = e.code;
-        source_close(s);
-    }
+    for (int i = optind; !rc && i < argc; i++)
+        rc = engine_read_file(&en, argv[i], NULL, NULL, NULL, &e);
     json_t *rec = NULL;
     int verdict = VERDICT_SOUND;
     if (!rc) {

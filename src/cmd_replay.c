@@ -96,6 +96,14 @@ static void progress_show(struct progress *p, const struct source *s, bool end)
         fputc('\n', stderr);
 }
 
+static void progress_tick(void *ctx, const struct source *s, uint64_t lines)
+{
+    struct progress *p = ctx;
+    (void)lines;
+    p->lines += 0x10000; /* called every 65536 lines */
+    progress_show(p, s, false);
+}
+
 int cmd_replay(int argc, char **argv)
 {
     enum { O_EVERY = 256, O_LATE, O_HORIZON, O_QUAR, O_FINAL, O_SHARD, O_SAVE, O_PROG, O_NOPROG, O_UNIT_KEY, O_VERSION };
@@ -168,25 +176,9 @@ int cmd_replay(int argc, char **argv)
             pg.total += (uint64_t)st.st_size;
     }
     for (int i = 0; !rc && i < n_files; i++) {
-        struct source *s = source_open(files[i], &e);
-        if (!s) {
-            rc = e.code;
-            break;
-        }
-        const char *line;
-        size_t len;
-        bool too_long;
-        int got;
-        while ((got = source_next(s, &line, &len, &too_long, &e)) == 1) {
-            if ((rc = engine_line(&en, 0, line, len, too_long, source_name(s), source_line(s), &e)))
-                break;
-            if (pg.on && !(++pg.lines & 0xffff))
-                progress_show(&pg, s, false);
-        }
-        if (got < 0)
-            rc = e.code;
-        pg.done += source_offset(s);
-        source_close(s);
+        uint64_t bytes = 0;
+        rc = engine_read_file(&en, files[i], progress_tick, &pg, &bytes, &e);
+        pg.done += bytes;
     }
     progress_show(&pg, NULL, true);
     if (!rc)

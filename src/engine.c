@@ -11,6 +11,7 @@
 #include <unistd.h>
 
 #include "readout.h"
+#include "source.h"
 #include "report.h"
 #include "timefmt.h"
 
@@ -356,6 +357,32 @@ int engine_line(struct engine *en, int part, const char *line, size_t len, bool 
     if (rc == REJ_UNKNOWN_ARM)
         return quarantine(en, src, lineno, REJ_UNKNOWN_ARM, line, len, e);
     return AB_OK;
+}
+
+int engine_read_file(struct engine *en, const char *path,
+                     void (*tick)(void *ctx, const struct source *s, uint64_t lines), void *ctx,
+                     uint64_t *bytes, struct err *e)
+{
+    struct source *s = source_open(path, e);
+    if (!s)
+        return e->code;
+    const char *line;
+    size_t len;
+    bool too_long;
+    int got, rc = AB_OK;
+    uint64_t n = 0;
+    while ((got = source_next(s, &line, &len, &too_long, e)) == 1) {
+        if ((rc = engine_line(en, 0, line, len, too_long, source_name(s), source_line(s), e)))
+            break;
+        if (tick && !(++n & 0xffff))
+            tick(ctx, s, n);
+    }
+    if (got < 0)
+        rc = e->code;
+    if (bytes)
+        *bytes = source_offset(s);
+    source_close(s);
+    return rc;
 }
 
 int engine_finish(struct engine *en, struct err *e)
