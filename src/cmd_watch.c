@@ -288,6 +288,8 @@ static int run(struct watch *w, const char *brokers, const char *group, char **p
         {"enable.partition.eof", "true"},
         /* never let librdkafka run the Kerberos kinit command through a shell */
         {"sasl.kerberos.min.time.before.relogin", "0"},
+        /* fetch ahead in large batches (bounded by queued.max.messages.kbytes) */
+        {"queued.min.messages", "1000000"},
     };
     int rc = AB_OK;
     if (brokers)

@@ -5,13 +5,18 @@
  *   unit record   24-byte header (key, exposure, pending head, arm, flags,
  *                 segment) + 8 bytes per metric variable: 24 + 2·2·8 = 56;
  *                 records live in fixed-size chunks, so growth never copies;
- *   index         open addressing (linear probing) of uint32 record numbers,
- *                 load ≤ 0.7: 6–11 bytes per unit;
+ *   index         open addressing (linear probing) of 8-byte entries: the
+ *                 record number and the high half of the unit's key (a probe
+ *                 reads a record only when the key probably matches); load
+ *                 0.35–0.7: 11.4–23 bytes per unit;
  *   pending       24-byte entries for outcomes a unit may still need, freed
- *                 when the watermark passes (see ledger.h).
+ *                 when the watermark passes (see ledger.h); while a unit is
+ *                 not exposed, its first value slot holds its pending floor
+ *                 (pend_floor), so sweeps skip lists with nothing to drop.
  * Nothing is allocated per event in steady state: chunks, the index, the
  * pending arena and the id table grow geometrically and are reused (the id
- * table drops expired ids in place).
+ * table drops expired ids in place). Sweeps settle units in batches whose
+ * pending lists are walked side by side (settle).
  *
  * Lookahead: with millions of units the index, the records and the id table
  * are far bigger than the caches, and each event would wait for several
@@ -103,7 +108,7 @@ struct ledger {
     char **chunks;
     size_t n_chunks;
     uint32_t n_recs;
-    uint32_t *index; /* record number + 1; 0 = empty */
+    uint64_t *index; /* IX_ENTRY(key, record number + 1); 0 = empty */
     size_t index_cap;
     /* pending outcomes */
     struct pent *pend;
@@ -241,18 +246,30 @@ static struct urec *rec_at(const struct ledger *l, uint32_t i)
     return (struct urec *)(l->chunks[i >> CHUNK_SHIFT] + (size_t)(i & (CHUNK_RECS - 1)) * l->lay->rec_size);
 }
 
+/* An index entry: the record number + 1 in the low half, the high half of the
+ * unit's key beside it, so that a probe reads a record only when its key
+ * probably matches (a record read is a cache miss; the probe run is not). */
+#define IX_ENTRY(key, n) (((key) & UINT64_C(0xffffffff00000000)) | (uint64_t)(n))
+#define IX_REC(e) ((uint32_t)(e))
+#define IX_SAME(e, key) ((((e) ^ (key)) >> 32) == 0)
+
+/* Places record i (key) in the index ix of cap slots. */
+static void index_put(uint64_t *ix, size_t cap, uint64_t key, uint32_t i)
+{
+    size_t s = key & (cap - 1);
+    while (ix[s])
+        s = (s + 1) & (cap - 1);
+    ix[s] = IX_ENTRY(key, i + 1);
+}
+
 static int index_grow(struct ledger *l)
 {
     size_t cap = l->index_cap ? l->index_cap * 2 : 1024;
-    uint32_t *ix = calloc(cap, sizeof *ix);
+    uint64_t *ix = calloc(cap, sizeof *ix);
     if (!ix)
         return -1;
-    for (uint32_t i = 0; i < l->n_recs; i++) {
-        size_t s = rec_at(l, i)->key & (cap - 1);
-        while (ix[s])
-            s = (s + 1) & (cap - 1);
-        ix[s] = i + 1;
-    }
+    for (uint32_t i = 0; i < l->n_recs; i++)
+        index_put(ix, cap, rec_at(l, i)->key, i);
     free(l->index);
     l->index = ix;
     l->index_cap = cap;
@@ -264,10 +281,12 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
 {
     if (l->index_cap) {
         size_t mask = l->index_cap - 1, s = key & mask;
-        for (; l->index[s]; s = (s + 1) & mask) {
-            struct urec *r = rec_at(l, l->index[s] - 1);
-            if (r->key == key)
-                return r;
+        for (uint64_t e; (e = l->index[s]); s = (s + 1) & mask) {
+            if (IX_SAME(e, key)) {
+                struct urec *r = rec_at(l, IX_REC(e) - 1);
+                if (r->key == key)
+                    return r;
+            }
         }
     }
     if (!create)
@@ -290,10 +309,7 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
     r->expo = NO_TIME;
     r->arm = ARM_NONE;
     l->n_recs++;
-    size_t mask = l->index_cap - 1, s = key & mask;
-    while (l->index[s])
-        s = (s + 1) & mask;
-    l->index[s] = i + 1;
+    index_put(l->index, l->index_cap, key, i);
     return r;
 }
 
@@ -326,6 +342,38 @@ static void pend_release(struct ledger *l, uint32_t i)
     l->pend[i].next = l->pend_free;
     l->pend_free = i;
     l->pend_used--;
+}
+
+/* A unit not yet exposed has all its values at zero (they are computed from
+ * its pending list when it is exposed, recompute), so the first value slot
+ * holds instead its pending floor: a lower bound of the times of its pending
+ * entries, lowered on every entry added, made exact when a sweep walks the
+ * list. A sweep skips the walk of a unit whose floor is not older than the
+ * cutoff (nothing to drop): without it every sweep would walk every pending
+ * list, a random memory read per entry. A zero floor (a record just made, or
+ * loaded from a snapshot, which stores zero values) only costs a walk.
+ * ledger_save writes the slot as zero, so snapshots are unchanged. */
+static int64_t pend_floor(const struct ledger *l, const struct urec *r)
+{
+    int64_t t = INT64_MIN;
+    if (l->lay->n_values)
+        memcpy(&t, &r->v[0], sizeof t);
+    return t;
+}
+
+static void set_pend_floor(const struct ledger *l, struct urec *r, int64_t t)
+{
+    if (l->lay->n_values)
+        memcpy(&r->v[0], &t, sizeof t);
+}
+
+/* Adds pending entry i (filled but for its link) at the head of r's list. */
+static void pend_push(struct ledger *l, struct urec *r, uint32_t i)
+{
+    l->pend[i].next = r->pend;
+    r->pend = i;
+    if (r->arm == ARM_NONE && l->pend[i].t < pend_floor(l, r))
+        set_pend_floor(l, r, l->pend[i].t);
 }
 
 static void pend_clear(struct ledger *l, struct urec *r)
@@ -663,9 +711,13 @@ static bool is_orphan(const struct ledger *l, int64_t t, int64_t expo)
     return t < expo && expo - t > (l->cfg->has_covariate ? l->cfg->pre_us : 0);
 }
 
-/* Drops pending entries of an unexposed unit older than `cutoff`. */
+/* Drops pending entries of an unexposed unit older than `cutoff`; skips the
+ * walk of its list when its pending floor says none is (see pend_floor). */
 static void prune_unexposed(struct ledger *l, struct urec *r, int64_t cutoff)
 {
+    if (!l->finished && pend_floor(l, r) >= cutoff)
+        return;
+    int64_t floor = INT64_MAX;
     uint32_t *link = &r->pend;
     while (*link) {
         uint32_t i = *link;
@@ -675,8 +727,46 @@ static void prune_unexposed(struct ledger *l, struct urec *r, int64_t cutoff)
             *link = l->pend[i].next;
             pend_release(l, i);
         } else {
+            if (l->pend[i].t < floor)
+                floor = l->pend[i].t;
             link = &l->pend[i].next;
         }
+    }
+    set_pend_floor(l, r, floor);
+}
+
+#define SETTLE_BATCH 16
+
+/* Settles the exposure of n units: counts what their pending entries say
+ * (duplicates by arm, orphans), releases the entries and marks the units
+ * final. The lists are walked side by side, so that their memory reads (one
+ * per entry, anywhere in the arena) overlap instead of queueing. */
+static void settle(struct ledger *l, struct urec **rs, int n)
+{
+    uint32_t k[SETTLE_BATCH];
+    for (int j = 0; j < n; j++)
+        if ((k[j] = rs[j]->pend))
+            __builtin_prefetch(&l->pend[k[j]]);
+    for (int active = n; active;) {
+        active = 0;
+        for (int j = 0; j < n; j++) {
+            if (!k[j])
+                continue;
+            const struct pent *p = &l->pend[k[j]];
+            const struct urec *r = rs[j];
+            if (p->ev == DUP_MARK)
+                l->cnt.dup_by_arm[r->arm] += !(r->flags & F_MULTI);
+            else
+                l->cnt.orphan_outcomes += is_orphan(l, p->t, r->expo);
+            if ((k[j] = p->next)) {
+                __builtin_prefetch(&l->pend[k[j]]);
+                active++;
+            }
+        }
+    }
+    for (int j = 0; j < n; j++) {
+        pend_clear(l, rs[j]); /* the entries are in the cache now */
+        rs[j]->flags |= F_FINAL;
     }
 }
 
@@ -687,19 +777,13 @@ static void sweep(struct ledger *l)
     int64_t cutoff = wm == INT64_MAX ? INT64_MAX : wm - (l->cfg->has_covariate ? l->cfg->pre_us : 0);
     uint32_t kept = 0;
     bool moved = false;
+    struct urec *batch[SETTLE_BATCH];
+    int nb = 0;
     for (uint32_t i = 0; i < l->n_recs; i++) {
         struct urec *r = rec_at(l, i);
+        bool due = false;
         if (r->arm != ARM_NONE) {
-            if (!(r->flags & F_FINAL) && r->expo < wm) {
-                for (uint32_t k = r->pend; k; k = l->pend[k].next) {
-                    if (l->pend[k].ev == DUP_MARK)
-                        l->cnt.dup_by_arm[r->arm] += !(r->flags & F_MULTI);
-                    else
-                        l->cnt.orphan_outcomes += is_orphan(l, l->pend[k].t, r->expo);
-                }
-                pend_clear(l, r);
-                r->flags |= F_FINAL;
-            }
+            due = !(r->flags & F_FINAL) && r->expo < wm;
         } else {
             prune_unexposed(l, r, cutoff);
             if (!r->pend)
@@ -711,18 +795,20 @@ static void sweep(struct ledger *l)
         }
         if (kept != i)
             memcpy(rec_at(l, kept), r, l->lay->rec_size);
+        /* records only move down, to slots already passed: the copy stays put */
+        if (due && (batch[nb++] = rec_at(l, kept), nb == SETTLE_BATCH)) {
+            settle(l, batch, nb);
+            nb = 0;
+        }
         kept++;
     }
+    if (nb)
+        settle(l, batch, nb);
     l->n_recs = kept;
     if (moved) {
         memset(l->index, 0, l->index_cap * sizeof *l->index);
-        size_t mask = l->index_cap - 1;
-        for (uint32_t i = 0; i < l->n_recs; i++) {
-            size_t s = rec_at(l, i)->key & mask;
-            while (l->index[s])
-                s = (s + 1) & mask;
-            l->index[s] = i + 1;
-        }
+        for (uint32_t i = 0; i < l->n_recs; i++)
+            index_put(l->index, l->index_cap, rec_at(l, i)->key, i);
     }
     l->last_sweep = wm;
     l->pend_after_sweep = l->pend_used;
@@ -826,8 +912,11 @@ static int apply_outcome_event(struct ledger *l, const struct qev *q)
                 l->cnt.orphan_outcomes++;
             return REJ_NONE;
         }
-        if (!r && !(r = unit_find(l, q->key, true)))
-            return -1;
+        if (!r) {
+            if (!(r = unit_find(l, q->key, true)))
+                return -1;
+            set_pend_floor(l, r, INT64_MAX); /* no entry yet */
+        }
     }
     if (r->flags & F_FINAL) {
         l->cnt.orphan_outcomes += is_orphan(l, q->t, r->expo);
@@ -835,8 +924,8 @@ static int apply_outcome_event(struct ledger *l, const struct qev *q)
         uint32_t i = pend_alloc(l);
         if (!i)
             return -1;
-        l->pend[i] = (struct pent){q->t, q->value, r->pend, (uint32_t)e};
-        r->pend = i;
+        l->pend[i] = (struct pent){q->t, q->value, 0, (uint32_t)e};
+        pend_push(l, r, i);
     }
     if (r->arm != ARM_NONE)
         apply_outcome(l, r, q->t, e, q->value, in_tally(r));
@@ -861,8 +950,8 @@ static int apply_queued(struct ledger *l, const struct qev *q)
                 uint32_t i = pend_alloc(l);
                 if (!i)
                     return -1;
-                l->pend[i] = (struct pent){q->t, 0, r->pend, DUP_MARK};
-                r->pend = i;
+                l->pend[i] = (struct pent){q->t, 0, 0, DUP_MARK};
+                pend_push(l, r, i);
             }
             return REJ_NONE;
         }
@@ -907,9 +996,12 @@ static void prefetch_index(const struct ledger *l, uint64_t key)
 static void prefetch_record(const struct ledger *l, uint64_t key)
 {
     if (l->index_cap) {
-        uint32_t i = l->index[key & (l->index_cap - 1)];
-        if (i)
-            __builtin_prefetch(rec_at(l, i - 1), 1);
+        size_t mask = l->index_cap - 1, s = key & mask;
+        for (uint64_t e; (e = l->index[s]); s = (s + 1) & mask)
+            if (IX_SAME(e, key)) {
+                __builtin_prefetch(rec_at(l, IX_REC(e) - 1), 1);
+                return;
+            }
     }
 }
 
@@ -1128,6 +1220,20 @@ static void put_u64(struct wr *o, uint64_t v)
     put(o, &v, sizeof v);
 }
 
+/* Writes a unit record; the values of a unit not yet exposed are zero (the
+ * slot that holds its pending floor is written as zero, see pend_floor). */
+static void put_rec(struct wr *o, const struct ledger *l, const struct urec *r)
+{
+    if (r->arm != ARM_NONE || !l->lay->n_values) {
+        put(o, r, l->lay->rec_size);
+        return;
+    }
+    put(o, r, sizeof *r);
+    double zero = 0;
+    for (int j = 0; j < l->lay->n_values; j++)
+        put(o, &zero, sizeof zero);
+}
+
 int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx)
 {
     sync(l);
@@ -1154,7 +1260,7 @@ int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx)
     }
     put_u64(&o, l->n_recs);
     for (uint32_t i = 0; i < l->n_recs; i++)
-        put(&o, rec_at(l, i), l->lay->rec_size);
+        put_rec(&o, l, rec_at(l, i));
     /* pending entries, unit by unit, in list order */
     put_u64(&o, l->pend_used);
     for (uint32_t i = 0; i < l->n_recs; i++) {
