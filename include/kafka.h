@@ -25,6 +25,10 @@
 
 /* The environment variable that allows test.mock.* properties when "1". */
 #define KAFKA_ALLOW_MOCK_ENV "ABTALLY_ALLOW_MOCK"
+/* A message with this header stands for a line longer than EVENT_MAX_LINE:
+ * its value is the line's first KiB; watch counts it as too_long, as replay
+ * counts the line itself. */
+#define KAFKA_TOO_LONG_HEADER "abtally-too-long"
 /* What a secret value prints as. */
 #define KAFKA_REDACTED "<redacted>"
 /* After a stop request, how long kafka_publisher_flush still waits for delivery. */
@@ -82,11 +86,11 @@ struct kafka_publish_stats {
     uint64_t bytes;             /* value bytes of the messages */
     uint64_t delivered;         /* messages the brokers acknowledged */
     uint64_t failed;            /* messages refused at once or failed in a delivery report */
-    uint64_t skipped_too_long;  /* lines longer than EVENT_MAX_LINE, not published */
+    uint64_t too_long;          /* lines longer than EVENT_MAX_LINE, published as too_long markers */
     uint64_t queue_waits;       /* times a full local queue was waited out */
     double seconds;             /* wall time from the first line to the end of the flush */
     char first_error[400];      /* "<file>:<line>: <why>" of the first failure, or "" */
-    char first_skipped[300];    /* "<file>:<line>" of the first skipped line, or "" */
+    char first_too_long[300];   /* "<file>:<line>" of the first such line, or "" */
 };
 
 struct kafka_publisher;
@@ -124,8 +128,9 @@ const struct kafka_topic_info *kafka_publisher_topic(const struct kafka_publishe
  *   - a line that does not decode, including an empty or blank line, is
  *     published as is (an empty line as an empty message) with no key, so a
  *     consumer rejects it for the same reason replay would;
- *   - a line longer than EVENT_MAX_LINE cannot be held whole: it is skipped
- *     and counted in skipped_too_long (replay rejects it as too_long).
+ *   - a line longer than EVENT_MAX_LINE cannot be held whole: its first KiB
+ *     is published, unkeyed, with the KAFKA_TOO_LONG_HEADER header and
+ *     counted in too_long (watch and replay both reject it as too_long).
  * A full local queue is waited out by polling. A message the producer refuses
  * at once counts as failed and publishing goes on. Returns AB_OK, or
  * AB_EINPUT with *e filled when the file cannot be read, when the stop flag

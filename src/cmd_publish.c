@@ -31,8 +31,9 @@ static const char usage[] =
     "  - Any other line, including an empty or blank one, is published as is with\n"
     "    no key (to a random partition), so that 'watch' rejects it for the same\n"
     "    reason 'replay' rejects it; an empty line becomes an empty message.\n"
-    "  - A line over 1 MiB cannot be published whole: it is skipped and counted\n"
-    "    ('replay' rejects it as too_long).\n"
+    "  - A line over 1 MiB cannot be published whole: its first KiB goes out,\n"
+    "    unkeyed, with the header abtally-too-long, and 'watch' rejects it as\n"
+    "    too_long just as 'replay' rejects the line.\n"
     "\n"
     "The producer is idempotent (enable.idempotence=true), keeps librdkafka's\n"
     "default batching and one request in flight per broker, so that nothing is lost\n"
@@ -168,10 +169,10 @@ int cmd_publish(int argc, char **argv)
             " failed in %.2f s (%.0f msg/s)\n",
             st->messages, st->keyed, st->messages - st->keyed, st->bytes, topic, ti->partitions,
             ti->partitions == 1 ? "" : "s", st->delivered, st->failed, st->seconds, rate);
-    if (st->skipped_too_long)
+    if (st->too_long)
         fprintf(stderr,
-                "abtally: publish: %" PRIu64 " lines over %d bytes skipped, the first at %s\n",
-                st->skipped_too_long, EVENT_MAX_LINE, st->first_skipped);
+                "abtally: publish: %" PRIu64 " lines over %d bytes sent as too_long markers, the first at %s\n",
+                st->too_long, EVENT_MAX_LINE, st->first_too_long);
     kafka_publisher_free(p);
     if (rc)
         return cli_error(rc, "publish: %s%s%s", e.msg, frc ? "; " : "", frc ? fe.msg : "");

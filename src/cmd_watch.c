@@ -366,8 +366,13 @@ static int run(struct watch *w, const char *brokers, const char *group, char **p
                     snprintf(src, sizeof src, "%s[%d]@%" PRId64, w->topic, p, m->offset);
                     const char *line = m->payload ? (const char *)m->payload : "";
                     size_t len = m->len;
-                    bool too_long = len > EVENT_MAX_LINE;
-                    if (too_long)
+                    rd_kafka_headers_t *hdrs = NULL;
+                    const void *hv;
+                    size_t hn;
+                    bool too_long = len > EVENT_MAX_LINE ||
+                                    (!rd_kafka_message_headers(m, &hdrs) &&
+                                     !rd_kafka_header_get_last(hdrs, KAFKA_TOO_LONG_HEADER, &hv, &hn));
+                    if (too_long && len > 1024)
                         len = 1024; /* the quarantine keeps the start */
                     rc = engine_line(&w->en, p, line, len, too_long, src, (uint64_t)m->offset, &w->err);
                     w->next[p] = m->offset + 1;

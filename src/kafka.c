@@ -342,14 +342,20 @@ static int check_fatal(struct kafka_publisher *p, struct err *e)
  * (also when the message was refused and counted as failed), or AB_EINPUT on
  * an interruption or a fatal error. */
 static int produce_one(struct kafka_publisher *p, const char *line, size_t len, const char *key, size_t klen,
-                       void *pos, struct err *e)
+                       void *pos, bool too_long, struct err *e)
 {
     rd_kafka_resp_err_t err;
     for (;;) {
-        err = rd_kafka_producev(p->rk, RD_KAFKA_V_RKT(p->rkt), RD_KAFKA_V_PARTITION(RD_KAFKA_PARTITION_UA),
-                                RD_KAFKA_V_MSGFLAGS(RD_KAFKA_MSG_F_COPY), RD_KAFKA_V_VALUE((void *)line, len),
-                                RD_KAFKA_V_KEY((const void *)key, klen), RD_KAFKA_V_OPAQUE(pos),
-                                RD_KAFKA_V_END);
+        if (too_long)
+            err = rd_kafka_producev(p->rk, RD_KAFKA_V_RKT(p->rkt), RD_KAFKA_V_PARTITION(RD_KAFKA_PARTITION_UA),
+                                    RD_KAFKA_V_MSGFLAGS(RD_KAFKA_MSG_F_COPY), RD_KAFKA_V_VALUE((void *)line, len),
+                                    RD_KAFKA_V_HEADER(KAFKA_TOO_LONG_HEADER, "1", 1),
+                                    RD_KAFKA_V_OPAQUE(pos), RD_KAFKA_V_END);
+        else
+            err = rd_kafka_producev(p->rk, RD_KAFKA_V_RKT(p->rkt), RD_KAFKA_V_PARTITION(RD_KAFKA_PARTITION_UA),
+                                    RD_KAFKA_V_MSGFLAGS(RD_KAFKA_MSG_F_COPY), RD_KAFKA_V_VALUE((void *)line, len),
+                                    RD_KAFKA_V_KEY((const void *)key, klen), RD_KAFKA_V_OPAQUE(pos),
+                                    RD_KAFKA_V_END);
         if (err != RD_KAFKA_RESP_ERR__QUEUE_FULL)
             break;
         if (sig_stop_requested())
@@ -401,20 +407,17 @@ int kafka_publish_file(struct kafka_publisher *p, const char *path, struct err *
             break;
         }
         p->st.lines++;
-        if (too_long) {
-            if (!p->st.skipped_too_long++)
-                snprintf(p->st.first_skipped, sizeof p->st.first_skipped, "%s:%" PRIu64, source_name(s),
-                         lineno);
-            continue;
-        }
+        if (too_long && !p->st.too_long++)
+            snprintf(p->st.first_too_long, sizeof p->st.first_too_long, "%s:%" PRIu64, source_name(s),
+                     lineno);
         struct event ev;
         const char *key = NULL;
         size_t klen = 0;
-        if (decoder_decode(p->dec, line, len, &ev) == REJ_NONE && ev.unit.p) {
+        if (!too_long && decoder_decode(p->dec, line, len, &ev) == REJ_NONE && ev.unit.p) {
             key = ev.unit.p;
             klen = ev.unit.n;
         }
-        if ((rc = produce_one(p, line, len, key, klen, pos_pack(file, lineno), e))) {
+        if ((rc = produce_one(p, line, len, key, klen, pos_pack(file, lineno), too_long, e))) {
             if (!check_fatal(p, e) && sig_stop_requested())
                 err_set(e, AB_EINPUT, "interrupted at %s:%" PRIu64, source_name(s), lineno);
             break;

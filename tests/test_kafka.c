@@ -461,7 +461,8 @@ static void test_kafka__publish_roundtrip(void **state)
     assert_int_equal(rd_kafka_mock_topic_create(c.mc, "events", 3, 1), RD_KAFKA_RESP_ERR_NO_ERROR);
     struct lines L;
     lines_make(&L, 3000, 40);
-    /* One line over EVENT_MAX_LINE at the end of the first file: skipped. */
+    /* One line over EVENT_MAX_LINE at the end of the first file: sent as a
+     * too_long marker (its first KiB, unkeyed, with the header). */
     char *huge = malloc(EVENT_MAX_LINE + 100);
     assert_non_null(huge);
     memset(huge, 'x', EVENT_MAX_LINE + 99);
@@ -479,16 +480,25 @@ static void test_kafka__publish_roundtrip(void **state)
     assert_int_equal(kafka_publisher_flush(p, &e), AB_OK);
     const struct kafka_publish_stats *st = kafka_publisher_stats(p);
     assert_int_equal(st->lines, 3001);
-    assert_int_equal(st->messages, 3000);
-    assert_int_equal(st->delivered, 3000);
+    assert_int_equal(st->messages, 3001);
+    assert_int_equal(st->delivered, 3001);
     assert_int_equal(st->failed, 0);
-    assert_int_equal(st->skipped_too_long, 1);
-    assert_non_null(strstr(st->first_skipped, ":1501"));
+    assert_int_equal(st->too_long, 1);
+    assert_non_null(strstr(st->first_too_long, ":1501"));
     assert_string_equal(st->first_error, "");
     kafka_publisher_free(p);
 
     struct msgs M = {NULL, 0, 0};
-    consume_all(c.bootstraps, "events", 3, L.n, &M);
+    consume_all(c.bootstraps, "events", 3, L.n + 1, &M);
+    /* the too_long marker: the line's first KiB, unkeyed; the rest round-trip */
+    size_t marker = M.n;
+    for (size_t i = 0; i < M.n; i++)
+        if (!M.v[i].key && strlen(M.v[i].value) == 1024 && M.v[i].value[0] == 'x')
+            marker = i;
+    assert_true(marker < M.n);
+    free(M.v[marker].value);
+    memmove(&M.v[marker], &M.v[marker + 1], (M.n - marker - 1) * sizeof *M.v);
+    M.n--;
     check_roundtrip(&L, &M, 3);
     msgs_free(&M);
     unlink(f1);

@@ -7,6 +7,8 @@
 set -eu
 . tests/cli-lib.sh
 make_log 20000
+# a line over 1 MiB: publish sends a too_long marker, watch counts it as replay does
+python3 -c 'print("{\"kind\":\"outcome\",\"note\":\"" + "x" * 1100000 + "\"}")' >> "$T/log.jsonl"
 start_broker events:4
 "$A" publish --brokers "$BS" --topic events "$T/log.jsonl" 2> "$T/pub.err" || fail "publish: $(cat "$T/pub.err")"
 # shellcheck disable=SC2086
@@ -16,5 +18,6 @@ start_broker events:4
 [ "$(wc -l < "$T/replay.out")" -gt 5 ] || fail "too few records"
 same_records "$T/watch.out" "$T/replay.out" orphan_outcomes || fail "records differ"
 [ "$(tail -n 1 "$T/watch.out")" = "$(tail -n 1 "$T/replay.out")" ] || fail "final summaries differ"
+tail -n 1 "$T/watch.out" | grep -q '"too_long":1' || fail "the long line was not counted as too_long"
 ls "$T/st" | grep -c '^events-[0-3].abstate$' | grep -qx 4 || fail "expected 4 partition states"
 echo ok
