@@ -77,6 +77,9 @@ struct counters {
     uint64_t hash_mismatch;                /* ... and named another arm than the hash gives */
 };
 
+/* a ← a + b, field by field (every field is a uint64_t count). */
+void counters_add(struct counters *a, const struct counters *b);
+
 /* Units by segment: the attrs of the assignment that set the exposure,
  * as "key=value" pairs sorted by key and joined by the byte 0x1f. */
 #define SEG_MAX 1024            /* distinct segments kept; more go to SEG_OTHER */

@@ -16,10 +16,16 @@
 
 #include "config.h"
 
-/* The bucket of a unit id; UINT64_MAX when hashing failed. */
-uint64_t rebucket_bucket(const struct config *cfg, const char *unit, size_t n);
+/* A digest context to reuse across calls (no allocation per unit), or NULL
+ * when out of memory; rebucket_ctx_free(NULL) does nothing. */
+void *rebucket_ctx_new(void);
+void rebucket_ctx_free(void *ctx);
+
+/* The bucket of a unit id; UINT64_MAX when hashing failed. ctx comes from
+ * rebucket_ctx_new, or is NULL for a context made for this one call. */
+uint64_t rebucket_bucket(const struct config *cfg, void *ctx, const char *unit, size_t n);
 
 /* The arm index the hash gives the unit, or -1 when no arm's range holds it. */
-int rebucket_arm(const struct config *cfg, const char *unit, size_t n);
+int rebucket_arm(const struct config *cfg, void *ctx, const char *unit, size_t n);
 
 #endif

@@ -139,6 +139,7 @@ struct ledger {
     struct qev *ring;
     uint32_t q_head, q_n;
     bool failed;                                  /* out of memory while applying a queued event */
+    void *md;                                     /* digest context of the hash re-check, reused */
     uint32_t event_len[2 * CONFIG_MAX_METRICS];   /* strlen of layout event names */
 };
 
@@ -1044,7 +1045,7 @@ int ledger_apply(struct ledger *l, const struct event *ev)
         if (arm >= 0) {
             seg_name(ev, q);
             if (cfg->hash.enabled)
-                q->hash_check = rebucket_arm(cfg, ev->unit.p, ev->unit.n) != arm ? HASH_MISMATCH : HASH_MATCH;
+                q->hash_check = rebucket_arm(cfg, l->md, ev->unit.p, ev->unit.n) != arm ? HASH_MISMATCH : HASH_MATCH;
         }
     } else {
         q->value = ev->value;
@@ -1091,7 +1092,10 @@ struct ledger *ledger_new(const struct layout *lay)
     size_t nm = lay->cfg->n_metrics ? (size_t)lay->cfg->n_metrics : 1;
     l->mom = calloc(nm * CONFIG_MAX_ARMS, sizeof *l->mom);
     l->ring = malloc(LOOKAHEAD * sizeof *l->ring);
+    /* without it (out of memory) each re-check makes its own context */
+    l->md = lay->cfg->hash.enabled ? rebucket_ctx_new() : NULL;
     if (!l->mom || !l->ring) {
+        rebucket_ctx_free(l->md);
         free(l->mom);
         free(l->ring);
         free(l);
@@ -1106,6 +1110,7 @@ void ledger_free(struct ledger *l)
 {
     if (!l)
         return;
+    rebucket_ctx_free(l->md);
     for (size_t i = 0; i < l->n_chunks; i++)
         free(l->chunks[i]);
     free(l->chunks);
@@ -1453,6 +1458,15 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     return l;
 }
 
+void counters_add(struct counters *a, const struct counters *b)
+{
+    /* every field is a uint64_t: add them as an array */
+    uint64_t *pa = (uint64_t *)a;
+    const uint64_t *pb = (const uint64_t *)b;
+    for (size_t i = 0; i < sizeof *a / sizeof(uint64_t); i++)
+        pa[i] += pb[i];
+}
+
 int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
 {
     sync(dst);
@@ -1484,10 +1498,7 @@ int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
             link = &dst->pend[n].next;
         }
     }
-    uint64_t *pa = (uint64_t *)&dst->cnt;
-    const uint64_t *pb = (const uint64_t *)&src->cnt;
-    for (size_t i = 0; i < sizeof dst->cnt / sizeof(uint64_t); i++)
-        pa[i] += pb[i];
+    counters_add(&dst->cnt, &src->cnt);
     for (int a = 0; a < cfg->n_arms; a++)
         dst->units[a] += src->units[a];
     for (int m = 0; m < cfg->n_metrics; m++)

@@ -17,15 +17,6 @@ json_t *json_num(double x)
     return isfinite(x) ? json_real(x) : json_null();
 }
 
-static void add_counters(struct counters *a, const struct counters *b)
-{
-    /* every field is a uint64_t: add them as an array */
-    uint64_t *pa = (uint64_t *)a;
-    const uint64_t *pb = (const uint64_t *)b;
-    for (size_t i = 0; i < sizeof *a / sizeof(uint64_t); i++)
-        pa[i] += pb[i];
-}
-
 static int merge_days(struct tallies *t, const struct day_row *rows, size_t n, int n_arms)
 {
     for (size_t i = 0; i < n; i++) {
@@ -107,7 +98,7 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
         const struct ledger *l = ls[i];
         if (!l)
             continue; /* a partition this worker does not own */
-        add_counters(&t->cnt, ledger_counters(l));
+        counters_add(&t->cnt, ledger_counters(l));
         for (int a = 0; a < cfg->n_arms; a++) {
             t->units[a] += ledger_units(l, a);
             total += ledger_units(l, a);
@@ -147,7 +138,7 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
 int tallies_add(struct tallies *acc, const struct tallies *t, const struct layout *lay)
 {
     const struct config *cfg = lay->cfg;
-    add_counters(&acc->cnt, &t->cnt);
+    counters_add(&acc->cnt, &t->cnt);
     for (int a = 0; a < cfg->n_arms; a++)
         acc->units[a] += t->units[a];
     for (int m = 0; m < cfg->n_metrics; m++)

@@ -453,6 +453,20 @@ static void test_kafka__topic_check_tells_created_from_existing(void **state)
     cluster_stop(&c);
 }
 
+/* Consumes topic "events" back, checks the round trip of L, then removes
+ * the input file f and stops the cluster (the common end of a publish test). */
+static void roundtrip_and_stop(struct cluster *c, int n_parts, struct lines *L, char *f)
+{
+    struct msgs M = {NULL, 0, 0};
+    consume_all(c->bootstraps, "events", n_parts, L->n, &M);
+    check_roundtrip(L, &M, n_parts);
+    msgs_free(&M);
+    unlink(f);
+    free(f);
+    lines_free(L);
+    cluster_stop(c);
+}
+
 static void test_kafka__publish_roundtrip(void **state)
 {
     (void)state;
@@ -539,14 +553,7 @@ static void test_kafka__publish_survives_transient_errors(void **state)
     assert_int_equal(st->failed, 0);
     kafka_publisher_free(p);
 
-    struct msgs M = {NULL, 0, 0};
-    consume_all(c.bootstraps, "events", 6, L.n, &M);
-    check_roundtrip(&L, &M, 6);
-    msgs_free(&M);
-    unlink(f);
-    free(f);
-    lines_free(&L);
-    cluster_stop(&c);
+    roundtrip_and_stop(&c, 6, &L, f);
 }
 
 static void test_kafka__publish_waits_out_a_full_queue(void **state)
@@ -574,14 +581,7 @@ static void test_kafka__publish_waits_out_a_full_queue(void **state)
     kafka_publisher_free(p);
     rd_kafka_mock_broker_set_rtt(c.mc, -1, 0);
 
-    struct msgs M = {NULL, 0, 0};
-    consume_all(c.bootstraps, "events", 2, L.n, &M);
-    check_roundtrip(&L, &M, 2);
-    msgs_free(&M);
-    unlink(f);
-    free(f);
-    lines_free(&L);
-    cluster_stop(&c);
+    roundtrip_and_stop(&c, 2, &L, f);
 }
 
 static void test_kafka__publish_reports_permanent_errors(void **state)
