@@ -36,6 +36,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "bigmem.h"
 #include "rebucket.h"
 #include "timefmt.h"
 
@@ -56,16 +57,32 @@ struct urec {
     double v[];    /* per metric values, at layout offsets */
 };
 
-struct pent {
-    int64_t t;     /* outcome time */
-    double v;      /* outcome value */
-    uint32_t next; /* next entry of the unit, 0 ends */
-    uint32_t ev;   /* outcome name index (layout), or DUP_MARK */
+/* Pending outcomes of a unit sit in blocks of PB_N entries, one cache line
+ * each, linked newest block first; within a block, entries 0..n-1 are oldest
+ * first. So the list reads newest first, as entries were added, and walking
+ * it costs a memory read per PB_N entries, not one per entry. */
+#define PB_N 3
+struct pblk {
+    int64_t t[PB_N];  /* outcome times */
+    double v[PB_N];   /* outcome values */
+    uint32_t next;    /* next (older) block of the unit, 0 ends */
+    uint8_t ev[PB_N]; /* outcome name index (layout), or PB_DUP */
+    uint8_t n;        /* entries used */
+    uint64_t spare;
 };
+_Static_assert(sizeof(struct pblk) == 64, "a pending block is one cache line");
 
 /* A pending entry that stands for a duplicate line of a unit whose exposure
- * is not settled yet: counted by arm once it is (order-independent). */
+ * is not settled yet: counted by arm once it is (order-independent). In
+ * snapshots it is written as DUP_MARK. */
+#define PB_DUP 0xFF
 #define DUP_MARK UINT32_MAX
+
+/* Blocks are numbered from 1 (0 ends a list); chunk 0 holds blocks
+ * [0, PB0), chunk k ≥ 1 holds [PB0·2^(k−1), PB0·2^k): chunks never move. */
+#define PB0_SHIFT 10
+#define PB0 (UINT32_C(1) << PB0_SHIFT)
+#define PB_CHUNKS (32 - PB0_SHIFT + 1)
 
 struct idslot {
     uint64_t h; /* id hash, 0 = empty */
@@ -96,10 +113,12 @@ struct qev {
 #define HASH_MATCH 1
 #define HASH_MISMATCH 2
 
-/* Events queued before they are applied (a power of two), and how far ahead
- * of its application an event's unit record is prefetched. */
+/* Events queued before they are applied (a power of two), and how many
+ * events after its own an event's unit record, then the head block of its
+ * pending list, are prefetched (see prefetch_index). */
 #define LOOKAHEAD 16
 #define LOOKAHEAD_RECORD 8
+#define LOOKAHEAD_PENDING 12
 
 struct ledger {
     const struct layout *lay;
@@ -107,12 +126,16 @@ struct ledger {
     /* unit records */
     char **chunks;
     size_t n_chunks;
+    size_t stride; /* bytes between records: rec_size, or a whole line when it fits one */
     uint32_t n_recs;
     uint64_t *index; /* IX_ENTRY(key, record number + 1); 0 = empty */
     size_t index_cap;
     /* pending outcomes */
-    struct pent *pend;
-    uint32_t pend_cap, pend_free, pend_used, pend_after_sweep;
+    struct pblk *pchunk[PB_CHUNKS];
+    int n_pchunks;
+    uint32_t pb_top;  /* blocks below it have been used (bump allocation) */
+    uint32_t pb_free; /* free list of released blocks, linked by next */
+    uint32_t pend_used, pend_after_sweep; /* entries */
     /* event ids */
     struct idslot *ids;
     size_t ids_cap, ids_n;
@@ -244,7 +267,7 @@ void layout_vector(const struct layout *lay, int m, const double *values, double
 
 static struct urec *rec_at(const struct ledger *l, uint32_t i)
 {
-    return (struct urec *)(l->chunks[i >> CHUNK_SHIFT] + (size_t)(i & (CHUNK_RECS - 1)) * l->lay->rec_size);
+    return (struct urec *)(l->chunks[i >> CHUNK_SHIFT] + (size_t)(i & (CHUNK_RECS - 1)) * l->stride);
 }
 
 /* An index entry: the record number + 1 in the low half, the high half of the
@@ -266,12 +289,12 @@ static void index_put(uint64_t *ix, size_t cap, uint64_t key, uint32_t i)
 static int index_grow(struct ledger *l)
 {
     size_t cap = l->index_cap ? l->index_cap * 2 : 1024;
-    uint64_t *ix = calloc(cap, sizeof *ix);
+    uint64_t *ix = big_alloc(cap * sizeof *ix);
     if (!ix)
         return -1;
     for (uint32_t i = 0; i < l->n_recs; i++)
         index_put(ix, cap, rec_at(l, i)->key, i);
-    free(l->index);
+    big_free(l->index, l->index_cap * sizeof *l->index);
     l->index = ix;
     l->index_cap = cap;
     return 0;
@@ -300,7 +323,7 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
         if (!nc)
             return NULL;
         l->chunks = nc;
-        if (!(nc[l->n_chunks] = malloc(CHUNK_RECS * l->lay->rec_size)))
+        if (!(nc[l->n_chunks] = big_alloc(CHUNK_RECS * l->stride)))
             return NULL;
         l->n_chunks++;
     }
@@ -316,33 +339,51 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
 
 /* ---------------------------------------------------------------- pending */
 
-static uint32_t pend_alloc(struct ledger *l)
+static struct pblk *pb(const struct ledger *l, uint32_t i)
 {
-    if (!l->pend_free) {
-        uint32_t cap = l->pend_cap ? l->pend_cap * 2 : 4096;
-        struct pent *np = realloc(l->pend, (size_t)cap * sizeof *np);
-        if (!np)
-            return 0;
-        l->pend = np;
-        uint32_t first = l->pend_cap ? l->pend_cap : 1; /* entry 0 is the null link */
-        for (uint32_t i = first; i < cap; i++)
-            np[i].next = i + 1 < cap ? i + 1 : 0;
-        l->pend_free = first;
-        l->pend_cap = cap;
+    uint32_t q = i >> PB0_SHIFT;
+    int k = q ? 32 - __builtin_clz(q) : 0;
+    return &l->pchunk[k][i - (k ? PB0 << (k - 1) : 0)];
+}
+
+/* A free block (n = 0, next = 0), 0 when out of memory. Released blocks are
+ * reused first, so the memory touched follows the peak of pending entries. */
+static uint32_t pb_alloc(struct ledger *l)
+{
+    uint32_t i = l->pb_free;
+    if (i) {
+        l->pb_free = pb(l, i)->next;
+        if (l->pb_free) /* the next allocation's block, likely far from cache */
+            __builtin_prefetch(pb(l, l->pb_free), 1);
+    } else {
+        if (!l->pb_top)
+            l->pb_top = 1; /* block 0 is the null link */
+        uint32_t cap = l->n_pchunks ? PB0 << (l->n_pchunks - 1) : 0;
+        if (l->pb_top >= cap) {
+            if (l->n_pchunks == PB_CHUNKS)
+                return 0;
+            size_t n = l->n_pchunks ? (size_t)cap : PB0;
+            if (!(l->pchunk[l->n_pchunks] = big_alloc(n * sizeof(struct pblk))))
+                return 0;
+            l->n_pchunks++;
+        }
+        i = l->pb_top++;
     }
-    uint32_t i = l->pend_free;
-    l->pend_free = l->pend[i].next;
-    l->pend_used++;
-    if (l->pend_free) /* the next allocation's entry, likely far from cache */
-        __builtin_prefetch(&l->pend[l->pend_free], 1);
+    struct pblk *b = pb(l, i);
+    b->n = 0;
+    b->next = 0;
     return i;
 }
 
-static void pend_release(struct ledger *l, uint32_t i)
+static void pb_release(struct ledger *l, uint32_t i)
 {
-    l->pend[i].next = l->pend_free;
-    l->pend_free = i;
-    l->pend_used--;
+    pb(l, i)->next = l->pb_free;
+    l->pb_free = i;
+}
+
+static size_t pb_bytes(const struct ledger *l)
+{
+    return l->n_pchunks ? ((size_t)PB0 << (l->n_pchunks - 1)) * sizeof(struct pblk) : 0;
 }
 
 /* A unit not yet exposed has all its values at zero (they are computed from
@@ -368,21 +409,63 @@ static void set_pend_floor(const struct ledger *l, struct urec *r, int64_t t)
         memcpy(&r->v[0], &t, sizeof t);
 }
 
-/* Adds pending entry i (filled but for its link) at the head of r's list. */
-static void pend_push(struct ledger *l, struct urec *r, uint32_t i)
+/* Adds an entry at the head (newest end) of r's pending list; -1 when out of memory. */
+static int pend_push(struct ledger *l, struct urec *r, int64_t t, double v, uint8_t ev)
 {
-    l->pend[i].next = r->pend;
-    r->pend = i;
-    if (r->arm == ARM_NONE && l->pend[i].t < pend_floor(l, r))
-        set_pend_floor(l, r, l->pend[i].t);
+    struct pblk *b = r->pend ? pb(l, r->pend) : NULL;
+    if (!b || b->n == PB_N) {
+        uint32_t i = pb_alloc(l);
+        if (!i)
+            return -1;
+        b = pb(l, i);
+        b->next = r->pend;
+        r->pend = i;
+    }
+    b->t[b->n] = t;
+    b->v[b->n] = v;
+    b->ev[b->n] = ev;
+    b->n++;
+    l->pend_used++;
+    if (r->arm == ARM_NONE && t < pend_floor(l, r))
+        set_pend_floor(l, r, t);
+    return 0;
+}
+
+/* Adds an entry at the tail (oldest end) of r's pending list, whose last
+ * block is *tail (0: the list is empty; updated); -1 when out of memory. */
+static int pend_append(struct ledger *l, struct urec *r, uint32_t *tail, int64_t t, double v, uint8_t ev)
+{
+    struct pblk *b = *tail ? pb(l, *tail) : NULL;
+    if (!b || b->n == PB_N) {
+        uint32_t i = pb_alloc(l);
+        if (!i)
+            return -1;
+        if (b)
+            b->next = i;
+        else
+            r->pend = i;
+        *tail = i;
+        b = pb(l, i);
+    }
+    memmove(b->t + 1, b->t, b->n * sizeof b->t[0]);
+    memmove(b->v + 1, b->v, b->n * sizeof b->v[0]);
+    memmove(b->ev + 1, b->ev, b->n);
+    b->t[0] = t;
+    b->v[0] = v;
+    b->ev[0] = ev;
+    b->n++;
+    l->pend_used++;
+    return 0;
 }
 
 static void pend_clear(struct ledger *l, struct urec *r)
 {
     uint32_t i = r->pend;
     while (i) {
-        uint32_t n = l->pend[i].next;
-        pend_release(l, i);
+        struct pblk *b = pb(l, i);
+        uint32_t n = b->next;
+        l->pend_used -= b->n;
+        pb_release(l, i);
         i = n;
     }
     r->pend = 0;
@@ -567,9 +650,14 @@ static void apply_outcome(struct ledger *l, struct urec *r, int64_t t, int ev, d
 static void recompute(struct ledger *l, struct urec *r)
 {
     memset(r->v, 0, (size_t)l->lay->n_values * sizeof(double));
-    for (uint32_t i = r->pend; i; i = l->pend[i].next)
-        if (l->pend[i].ev != DUP_MARK)
-            apply_outcome(l, r, l->pend[i].t, (int)l->pend[i].ev, l->pend[i].v, false);
+    for (uint32_t i = r->pend; i;) {
+        const struct pblk *b = pb(l, i);
+        if ((i = b->next))
+            __builtin_prefetch(pb(l, i));
+        for (int j = b->n - 1; j >= 0; j--) /* newest first */
+            if (b->ev[j] != PB_DUP)
+                apply_outcome(l, r, b->t[j], b->ev[j], b->v[j], false);
+    }
 }
 
 /* ---------------------------------------------------------------- ids */
@@ -615,7 +703,7 @@ static int ids_rebuild(struct ledger *l, size_t cap)
         ids_expire(l);
         return 0;
     }
-    struct idslot *ni = calloc(cap, sizeof *ni);
+    struct idslot *ni = big_alloc(cap * sizeof *ni);
     if (!ni)
         return -1;
     int64_t cutoff = l->max_time == INT64_MIN ? INT64_MIN : l->max_time - l->lay->dedup_horizon_us;
@@ -630,7 +718,7 @@ static int ids_rebuild(struct ledger *l, size_t cap)
         ni[s] = *o;
         n++;
     }
-    free(l->ids);
+    big_free(l->ids, l->ids_cap * sizeof *l->ids);
     l->ids = ni;
     l->ids_cap = cap;
     l->ids_n = n;
@@ -722,15 +810,26 @@ static void prune_unexposed(struct ledger *l, struct urec *r, int64_t cutoff)
     uint32_t *link = &r->pend;
     while (*link) {
         uint32_t i = *link;
-        if (l->pend[i].t < cutoff || l->finished) {
-            if (l->pend[i].ev != DUP_MARK && l->pend[i].t >= l->cfg->window_start)
-                l->cnt.orphan_outcomes++;
-            *link = l->pend[i].next;
-            pend_release(l, i);
+        struct pblk *b = pb(l, i);
+        int kept = 0;
+        for (int j = 0; j < b->n; j++) {
+            if (b->t[j] < cutoff || l->finished) {
+                if (b->ev[j] != PB_DUP && b->t[j] >= l->cfg->window_start)
+                    l->cnt.orphan_outcomes++;
+                l->pend_used--;
+                continue;
+            }
+            if (b->t[j] < floor)
+                floor = b->t[j];
+            b->t[kept] = b->t[j]; /* the kept entries stay in order */
+            b->v[kept] = b->v[j];
+            b->ev[kept++] = b->ev[j];
+        }
+        if ((b->n = (uint8_t)kept)) {
+            link = &b->next;
         } else {
-            if (l->pend[i].t < floor)
-                floor = l->pend[i].t;
-            link = &l->pend[i].next;
+            *link = b->next;
+            pb_release(l, i);
         }
     }
     set_pend_floor(l, r, floor);
@@ -747,20 +846,21 @@ static void settle(struct ledger *l, struct urec **rs, int n)
     uint32_t k[SETTLE_BATCH];
     for (int j = 0; j < n; j++)
         if ((k[j] = rs[j]->pend))
-            __builtin_prefetch(&l->pend[k[j]]);
+            __builtin_prefetch(pb(l, k[j]));
     for (int active = n; active;) {
         active = 0;
         for (int j = 0; j < n; j++) {
             if (!k[j])
                 continue;
-            const struct pent *p = &l->pend[k[j]];
+            const struct pblk *b = pb(l, k[j]);
             const struct urec *r = rs[j];
-            if (p->ev == DUP_MARK)
-                l->cnt.dup_by_arm[r->arm] += !(r->flags & F_MULTI);
-            else
-                l->cnt.orphan_outcomes += is_orphan(l, p->t, r->expo);
-            if ((k[j] = p->next)) {
-                __builtin_prefetch(&l->pend[k[j]]);
+            for (int x = 0; x < b->n; x++)
+                if (b->ev[x] == PB_DUP)
+                    l->cnt.dup_by_arm[r->arm] += !(r->flags & F_MULTI);
+                else
+                    l->cnt.orphan_outcomes += is_orphan(l, b->t[x], r->expo);
+            if ((k[j] = b->next)) {
+                __builtin_prefetch(pb(l, k[j]));
                 active++;
             }
         }
@@ -922,11 +1022,8 @@ static int apply_outcome_event(struct ledger *l, const struct qev *q)
     if (r->flags & F_FINAL) {
         l->cnt.orphan_outcomes += is_orphan(l, q->t, r->expo);
     } else {
-        uint32_t i = pend_alloc(l);
-        if (!i)
+        if (pend_push(l, r, q->t, q->value, (uint8_t)e))
             return -1;
-        l->pend[i] = (struct pent){q->t, q->value, 0, (uint32_t)e};
-        pend_push(l, r, i);
     }
     if (r->arm != ARM_NONE)
         apply_outcome(l, r, q->t, e, q->value, in_tally(r));
@@ -948,11 +1045,8 @@ static int apply_queued(struct ledger *l, const struct qev *q)
                     l->cnt.dup_by_arm[r->arm]++;
             } else if (r) {
                 /* the unit's arm may still change: count it when settled */
-                uint32_t i = pend_alloc(l);
-                if (!i)
+                if (pend_push(l, r, q->t, 0, PB_DUP))
                     return -1;
-                l->pend[i] = (struct pent){q->t, 0, 0, DUP_MARK};
-                pend_push(l, r, i);
             }
             return REJ_NONE;
         }
@@ -987,23 +1081,44 @@ static void sync(const struct ledger *cl)
         apply_oldest(l);
 }
 
-/* Prefetches the index slot of a unit and, once that has arrived, its record. */
+/* The three steps of the lookahead (see the top of this file): an event's
+ * index slot is prefetched when it is queued; LOOKAHEAD_RECORD events later,
+ * its record; LOOKAHEAD_PENDING events later, the head block of the unit's
+ * pending list, which its record names. */
 static void prefetch_index(const struct ledger *l, uint64_t key)
 {
     if (l->index_cap)
         __builtin_prefetch(&l->index[key & (l->index_cap - 1)]);
 }
 
-static void prefetch_record(const struct ledger *l, uint64_t key)
+/* The record the index names for key, probably the unit's (the key is not
+ * compared, which would read the record); NULL when none. */
+static const struct urec *index_guess(const struct ledger *l, uint64_t key)
 {
     if (l->index_cap) {
         size_t mask = l->index_cap - 1, s = key & mask;
         for (uint64_t e; (e = l->index[s]); s = (s + 1) & mask)
-            if (IX_SAME(e, key)) {
-                __builtin_prefetch(rec_at(l, IX_REC(e) - 1), 1);
-                return;
-            }
+            if (IX_SAME(e, key))
+                return rec_at(l, IX_REC(e) - 1);
     }
+    return NULL;
+}
+
+static void prefetch_record(const struct ledger *l, uint64_t key)
+{
+    const char *r = (const char *)index_guess(l, key);
+    if (r) {
+        for (size_t o = 0; o < l->lay->rec_size; o += 64) /* every line it spans */
+            __builtin_prefetch(r + o, 1);
+        __builtin_prefetch(r + l->lay->rec_size - 1, 1);
+    }
+}
+
+static void prefetch_pending(const struct ledger *l, uint64_t key)
+{
+    const struct urec *r = index_guess(l, key);
+    if (r && r->pend)
+        __builtin_prefetch(pb(l, r->pend), 1);
 }
 
 int ledger_apply(struct ledger *l, const struct event *ev)
@@ -1060,6 +1175,8 @@ int ledger_apply(struct ledger *l, const struct event *ev)
     l->q_n++;
     if (l->q_n > LOOKAHEAD_RECORD)
         prefetch_record(l, l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_RECORD) & (LOOKAHEAD - 1)].key);
+    if (l->q_n > LOOKAHEAD_PENDING)
+        prefetch_pending(l, l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING) & (LOOKAHEAD - 1)].key);
     if (l->q_n == LOOKAHEAD && apply_oldest(l) < 0)
         return -1;
     return REJ_NONE;
@@ -1087,6 +1204,7 @@ struct ledger *ledger_new(const struct layout *lay)
         return NULL;
     l->lay = lay;
     l->cfg = lay->cfg;
+    l->stride = lay->rec_size <= 64 ? 64 : lay->rec_size;
     l->max_time = INT64_MIN;
     l->last_sweep = INT64_MIN;
     size_t nm = lay->cfg->n_metrics ? (size_t)lay->cfg->n_metrics : 1;
@@ -1112,11 +1230,12 @@ void ledger_free(struct ledger *l)
         return;
     rebucket_ctx_free(l->md);
     for (size_t i = 0; i < l->n_chunks; i++)
-        free(l->chunks[i]);
+        big_free(l->chunks[i], CHUNK_RECS * l->stride);
     free(l->chunks);
-    free(l->index);
-    free(l->pend);
-    free(l->ids);
+    big_free(l->index, l->index_cap * sizeof *l->index);
+    for (int k = 0; k < l->n_pchunks; k++)
+        big_free(l->pchunk[k], (k ? (size_t)PB0 << (k - 1) : PB0) * sizeof(struct pblk));
+    big_free(l->ids, l->ids_cap * sizeof *l->ids);
     free(l->multi);
     free(l->days);
     for (size_t i = 0; i < l->n_segs; i++)
@@ -1176,8 +1295,8 @@ size_t ledger_n_records(const struct ledger *l)
 size_t ledger_memory(const struct ledger *l)
 {
     sync(l);
-    return l->n_chunks * CHUNK_RECS * l->lay->rec_size + l->index_cap * sizeof *l->index +
-           (size_t)l->pend_cap * sizeof *l->pend + l->ids_cap * sizeof *l->ids +
+    return l->n_chunks * CHUNK_RECS * l->stride + l->index_cap * sizeof *l->index +
+           pb_bytes(l) + l->ids_cap * sizeof *l->ids +
            l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days +
            LOOKAHEAD * sizeof *l->ring;
 }
@@ -1185,9 +1304,9 @@ size_t ledger_memory(const struct ledger *l)
 void ledger_memory_parts(const struct ledger *l, struct ledger_mem *m)
 {
     sync(l);
-    m->records = l->n_chunks * CHUNK_RECS * l->lay->rec_size;
+    m->records = l->n_chunks * CHUNK_RECS * l->stride;
     m->index = l->index_cap * sizeof *l->index;
-    m->pending = (size_t)l->pend_cap * sizeof *l->pend;
+    m->pending = pb_bytes(l);
     m->ids = l->ids_cap * sizeof *l->ids;
     m->other = l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days + LOOKAHEAD * sizeof *l->ring;
     m->n_records = l->n_recs;
@@ -1270,9 +1389,13 @@ int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx)
     put_u64(&o, l->pend_used);
     for (uint32_t i = 0; i < l->n_recs; i++) {
         const struct urec *r = rec_at(l, i);
-        for (uint32_t k = r->pend; k; k = l->pend[k].next) {
-            struct { uint32_t rec, ev; int64_t t; double v; } pe = {i, l->pend[k].ev, l->pend[k].t, l->pend[k].v};
-            put(&o, &pe, sizeof pe);
+        for (uint32_t k = r->pend; k; k = pb(l, k)->next) {
+            const struct pblk *b = pb(l, k);
+            for (int j = b->n - 1; j >= 0; j--) {
+                struct { uint32_t rec, ev; int64_t t; double v; } pe = {
+                    i, b->ev[j] == PB_DUP ? DUP_MARK : b->ev[j], b->t[j], b->v[j]};
+                put(&o, &pe, sizeof pe);
+            }
         }
     }
     put_u64(&o, l->ids_n);
@@ -1404,22 +1527,22 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     uint64_t np = take_u64(&r);
     if (r.bad || np > r.left / 24)
         return load_fail(l, e, "bad pending count");
+    uint32_t last = UINT32_MAX, tail = 0; /* the unit appended to last, and its last block */
     for (uint64_t i = 0; i < np; i++) {
         struct { uint32_t rec, ev; int64_t t; double v; } pe;
         take(&r, &pe, sizeof pe);
         if (r.bad || pe.rec >= l->n_recs || (pe.ev >= (uint32_t)lay->n_events && pe.ev != DUP_MARK) ||
             !is_event_time(pe.t))
             return load_fail(l, e, "a pending outcome points nowhere");
-        uint32_t k = pend_alloc(l);
-        if (!k)
-            return load_fail(l, e, "out of memory");
         struct urec *u = rec_at(l, pe.rec);
+        if (pe.rec != last) { /* saved unit by unit; any order still loads */
+            last = pe.rec;
+            for (tail = u->pend; tail && pb(l, tail)->next;)
+                tail = pb(l, tail)->next;
+        }
         /* append, keeping the saved order */
-        l->pend[k] = (struct pent){pe.t, pe.v, 0, pe.ev};
-        uint32_t *link = &u->pend;
-        while (*link)
-            link = &l->pend[*link].next;
-        *link = k;
+        if (pend_append(l, u, &tail, pe.t, pe.v, pe.ev == DUP_MARK ? PB_DUP : (uint8_t)pe.ev))
+            return load_fail(l, e, "out of memory");
     }
     uint64_t ni = take_u64(&r);
     if (r.bad || ni > r.left / sizeof(struct idslot))
@@ -1427,7 +1550,7 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     size_t cap = 4096;
     while (cap < ni * 2 + 2)
         cap *= 2;
-    if (!(l->ids = calloc(cap, sizeof *l->ids)))
+    if (!(l->ids = big_alloc(cap * sizeof *l->ids)))
         return load_fail(l, e, "out of memory");
     l->ids_cap = cap;
     for (uint64_t i = 0; i < ni; i++) {
@@ -1488,14 +1611,15 @@ int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
         if (s->seg && !(d->seg = seg_find(dst, src->segs[s->seg - 1].name, true)))
             return err_set(e, AB_EINPUT, "out of memory");
         uint32_t *link = &d->pend;
-        for (uint32_t k = s->pend; k; k = src->pend[k].next) {
-            uint32_t n = pend_alloc(dst);
+        for (uint32_t k = s->pend; k; k = pb(src, k)->next) {
+            uint32_t n = pb_alloc(dst);
             if (!n)
                 return err_set(e, AB_EINPUT, "out of memory");
-            dst->pend[n] = src->pend[k];
-            dst->pend[n].next = 0;
+            *pb(dst, n) = *pb(src, k); /* block by block: the same order */
+            pb(dst, n)->next = 0;
+            dst->pend_used += pb(src, k)->n;
             *link = n;
-            link = &dst->pend[n].next;
+            link = &pb(dst, n)->next;
         }
     }
     counters_add(&dst->cnt, &src->cnt);

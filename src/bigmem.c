@@ -1,0 +1,60 @@
+/*
+ * bigmem.c — see bigmem.h.
+ */
+#include "bigmem.h"
+
+#include <stdint.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/mman.h>
+
+#define LINE 64
+#define MAP_MIN (256u * 1024)          /* from here on, mapped */
+#define HUGE_MIN (4u * 1024 * 1024)    /* from here on, 2 MiB aligned and advised */
+#define HUGE_PAGE (2u * 1024 * 1024)
+
+static size_t round_up(size_t n, size_t to)
+{
+    return (n + to - 1) / to * to;
+}
+
+void *big_alloc(size_t bytes)
+{
+    if (!bytes)
+        bytes = 1;
+    if (bytes < MAP_MIN) {
+        void *p = aligned_alloc(LINE, round_up(bytes, LINE));
+        if (p)
+            memset(p, 0, bytes);
+        return p;
+    }
+    size_t n = round_up(bytes, HUGE_PAGE);
+    size_t extra = bytes >= HUGE_MIN ? HUGE_PAGE : 0;
+    char *m = mmap(NULL, n + extra, PROT_READ | PROT_WRITE, MAP_PRIVATE | MAP_ANONYMOUS, -1, 0);
+    if (m == MAP_FAILED)
+        return NULL;
+    if (!extra)
+        return m;
+    /* keep the 2 MiB aligned part of the mapping */
+    char *p = (char *)round_up((uintptr_t)m, HUGE_PAGE);
+    if (p > m)
+        munmap(m, (size_t)(p - m));
+    if (p + n < m + n + extra)
+        munmap(p + n, (size_t)(m + n + extra - (p + n)));
+#ifdef MADV_HUGEPAGE
+    madvise(p, n, MADV_HUGEPAGE); /* a hint: without huge pages it still works */
+#endif
+    return p;
+}
+
+void big_free(void *p, size_t bytes)
+{
+    if (!p)
+        return;
+    if (!bytes)
+        bytes = 1;
+    if (bytes < MAP_MIN)
+        free(p);
+    else
+        munmap(p, round_up(bytes, HUGE_PAGE));
+}
