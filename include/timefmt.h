@@ -24,6 +24,10 @@
 /* Parses an RFC 3339 date-time of n bytes into *us. Returns 0, or -1 when malformed. */
 int time_parse_rfc3339(const char *s, size_t n, int64_t *us);
 
+/* The same without the fast path for the common forms (for tests: the two
+ * must agree on every input). */
+int time_parse_rfc3339_general(const char *s, size_t n, int64_t *us);
+
 /* Converts epoch milliseconds (as a double holding an integer) into *us.
  * Returns 0, or -1 when not an integer or out of range. */
 int time_from_epoch_ms(double ms, int64_t *us);

@@ -67,7 +67,56 @@ static int expect(const char *s, size_t n, size_t *i, char c)
     return 0;
 }
 
+/* Two digits at p, or -1. */
+static int two_digits(const char *p)
+{
+    unsigned a = (unsigned)(unsigned char)p[0] - '0', b = (unsigned)(unsigned char)p[1] - '0';
+    return a > 9 || b > 9 ? -1 : (int)(a * 10 + b);
+}
+
+/* The forms nearly every event carries, "YYYY-MM-DDTHH:MM:SSZ" and
+ * "YYYY-MM-DDTHH:MM:SS.fffZ", read without the general parser's byte-by-byte
+ * steps (which took about 5% of a replay). Returns 0 with *us set, or 1 when
+ * s is not such a time, valid: then the general parser decides, so the
+ * results never differ (tests/test_event.c compares the two). */
+static int parse_common(const char *s, size_t n, int64_t *us)
+{
+    if ((n != 20 && n != 24) || s[4] != '-' || s[7] != '-' || s[10] != 'T' || s[13] != ':' ||
+        s[16] != ':' || s[n - 1] != 'Z')
+        return 1;
+    int ms = 0;
+    if (n == 24) {
+        int f = two_digits(s + 20);
+        unsigned f3 = (unsigned)(unsigned char)s[22] - '0';
+        if (s[19] != '.' || f < 0 || f3 > 9)
+            return 1;
+        ms = f * 10 + (int)f3;
+    }
+    int y1 = two_digits(s), y2 = two_digits(s + 2), mo = two_digits(s + 5), d = two_digits(s + 8);
+    int h = two_digits(s + 11), mi = two_digits(s + 14), se = two_digits(s + 17);
+    if ((y1 | y2 | mo | d | h | mi | se) < 0)
+        return 1;
+    int y = y1 * 100 + y2;
+    if (mo < 1 || mo > 12 || d < 1 || (unsigned)d > days_in_month(y, (unsigned)mo) || h > 23 || mi > 59 ||
+        se > 60)
+        return 1;
+    int64_t secs = days_from_civil(y, (unsigned)mo, (unsigned)d) * 86400 + (int64_t)h * 3600 +
+                   (int64_t)mi * 60 + se;
+    int64_t t = secs * US_PER_SEC + (int64_t)ms * 1000;
+    if (t < TIME_MIN_US || t > TIME_MAX_US)
+        return 1;
+    *us = t;
+    return 0;
+}
+
 int time_parse_rfc3339(const char *s, size_t n, int64_t *us)
+{
+    if (!parse_common(s, n, us))
+        return 0;
+    return time_parse_rfc3339_general(s, n, us);
+}
+
+int time_parse_rfc3339_general(const char *s, size_t n, int64_t *us)
 {
     size_t i = 0;
     int y = digits(s, n, &i, 4);

@@ -766,6 +766,37 @@ static void test_event__time_accepted_forms(void **state)
     assert_int_equal(us, INT64_C(253402300799500000));
 }
 
+/* The fast path for the common forms (timefmt.c parse_common) against the
+ * general parser: the same result on every input. Property test on invented
+ * strings: valid times of both common lengths, then the same with one byte
+ * replaced by a digit, a separator or a letter (fixed seed). */
+static void test_event__time_fast_path_agrees(void **state)
+{
+    (void)state;
+    static const char subst[] = "0123456789-:.TZtz +/";
+    uint64_t x = 0x9e3779b97f4a7c15u;
+    int accepted = 0;
+    for (int i = 0; i < 200000; i++) {
+        x ^= x << 13, x ^= x >> 7, x ^= x << 17;
+        char buf[40];
+        int n = snprintf(buf, sizeof buf, "%04u-%02u-%02uT%02u:%02u:%02u", (unsigned)(x % 10000),
+                         (unsigned)(x >> 14) % 14, (unsigned)(x >> 18) % 33, (unsigned)(x >> 24) % 25,
+                         (unsigned)(x >> 30) % 61, (unsigned)(x >> 36) % 62);
+        if ((x >> 42) & 1)
+            n += snprintf(buf + n, sizeof buf - (size_t)n, ".%03u", (unsigned)(x >> 43) % 1000);
+        buf[n++] = 'Z';
+        buf[n] = '\0';
+        if ((x >> 53) % 3 == 0) /* one byte replaced */
+            buf[(x >> 20) % (uint64_t)n] = subst[(x >> 9) % (sizeof subst - 1)];
+        int64_t a = 1, b = 2;
+        int ra = time_parse_rfc3339(buf, (size_t)n, &a), rb = time_parse_rfc3339_general(buf, (size_t)n, &b);
+        if (ra != rb || (ra == 0 && a != b))
+            fail_msg("'%s': fast path %d %lld, general %d %lld", buf, ra, (long long)a, rb, (long long)b);
+        accepted += ra == 0;
+    }
+    assert_true(accepted > 10000); /* the property was checked on many valid times */
+}
+
 static void test_event__time_epoch_ms(void **state)
 {
     (void)state;
@@ -936,6 +967,7 @@ int main(void)
         cmocka_unit_test(test_event__time_rfc3339_examples),
         cmocka_unit_test_setup_teardown(test_event__time_examples_in_events, setup, teardown),
         cmocka_unit_test(test_event__time_accepted_forms),
+        cmocka_unit_test(test_event__time_fast_path_agrees),
         cmocka_unit_test(test_event__time_epoch_ms),
         cmocka_unit_test(test_event__time_format),
         cmocka_unit_test(test_event__time_format_round_trip),
