@@ -3,20 +3,26 @@
  *
  * Storage (bytes for a two-metric experiment of mean/binary metrics):
  *   unit record   24-byte header (key, exposure, pending head, arm, flags,
- *                 segment) + 8 bytes per metric variable: 24 + 2·2·8 = 56;
- *                 records live in fixed-size chunks, so growth never copies;
+ *                 segment) + 8 bytes per metric variable: 24 + 2·2·8 = 56,
+ *                 stored 64 bytes apart (a record of up to 64 bytes takes one
+ *                 cache line, not two); records live in fixed-size chunks, so
+ *                 growth never copies;
  *   index         open addressing (linear probing) of 8-byte entries: the
  *                 record number and the high half of the unit's key (a probe
  *                 reads a record only when the key probably matches); load
  *                 0.35–0.7: 11.4–23 bytes per unit;
- *   pending       24-byte entries for outcomes a unit may still need, freed
- *                 when the watermark passes (see ledger.h); while a unit is
- *                 not exposed, its first value slot holds its pending floor
- *                 (pend_floor), so sweeps skip lists with nothing to drop.
+ *   pending       blocks of three outcomes a unit may still need (one cache
+ *                 line, struct pblk), freed when the watermark passes (see
+ *                 ledger.h); while a unit is not exposed, its first value
+ *                 slot holds its pending floor (pend_floor), so sweeps skip
+ *                 lists with nothing to drop;
+ *   event ids     16-byte slots (hash, time), linear probing, load ≤ 0.5.
  * Nothing is allocated per event in steady state: chunks, the index, the
- * pending arena and the id table grow geometrically and are reused (the id
- * table drops expired ids in place). Sweeps settle units in batches whose
- * pending lists are walked side by side (settle).
+ * pending blocks and the id table grow geometrically and are reused (the id
+ * table drops expired ids in place, and reuses their slots). Sweeps settle
+ * units in batches whose pending lists are walked side by side (settle).
+ * Tables and chunks of 4 MiB and more are mapped on huge pages where the
+ * kernel allows (bigmem.h).
  *
  * Lookahead: with millions of units the index, the records and the id table
  * are far bigger than the caches, and each event would wait for several
@@ -662,6 +668,13 @@ static void recompute(struct ledger *l, struct urec *r)
 
 /* ---------------------------------------------------------------- ids */
 
+/* The time before which an id is forgotten: ids older than the horizon,
+ * counted back from the latest event time, no longer make duplicates. */
+static int64_t ids_cutoff(const struct ledger *l)
+{
+    return l->max_time == INT64_MIN ? INT64_MIN : l->max_time - l->lay->dedup_horizon_us;
+}
+
 /* Drops the ids older than the horizon in place (the capacity stays), with
  * no allocation and one sequential pass: starting after an empty slot (no
  * probe run crosses it), each slot in turn is cleared when expired, or its
@@ -670,7 +683,7 @@ static void recompute(struct ledger *l, struct urec *r)
  * valid (the in-place variant of re-inserting every id). */
 static void ids_expire(struct ledger *l)
 {
-    int64_t cutoff = l->max_time == INT64_MIN ? INT64_MIN : l->max_time - l->lay->dedup_horizon_us;
+    int64_t cutoff = ids_cutoff(l);
     size_t cap = l->ids_cap, mask = cap - 1, n = 0, start = 0;
     while (start < cap && l->ids[start].h)
         start++;
@@ -706,7 +719,7 @@ static int ids_rebuild(struct ledger *l, size_t cap)
     struct idslot *ni = big_alloc(cap * sizeof *ni);
     if (!ni)
         return -1;
-    int64_t cutoff = l->max_time == INT64_MIN ? INT64_MIN : l->max_time - l->lay->dedup_horizon_us;
+    int64_t cutoff = ids_cutoff(l);
     size_t n = 0;
     for (size_t i = 0; i < l->ids_cap; i++) {
         struct idslot *o = &l->ids[i];
@@ -725,7 +738,10 @@ static int ids_rebuild(struct ledger *l, size_t cap)
     return 0;
 }
 
-/* True when the id was seen (and remembered); otherwise remembers it. */
+/* True when the id was seen within the horizon (see ids_cutoff); otherwise
+ * remembers it, with time t. An expired id met on the probe is treated as
+ * absent, and its slot is reused for the id remembered: so the table fills
+ * more slowly and the in-place expiry passes (ids_expire) come less often. */
 static int id_seen(struct ledger *l, uint64_t h, int64_t t)
 {
     if (!h)
@@ -737,13 +753,28 @@ static int id_seen(struct ledger *l, uint64_t h, int64_t t)
         if ((l->ids_n + 1) * 4 > cap && ids_rebuild(l, cap * 2))
             return -1;
     }
+    int64_t cutoff = ids_cutoff(l);
     size_t mask = l->ids_cap - 1, s = h & mask;
-    for (; l->ids[s].h; s = (s + 1) & mask)
-        if (l->ids[s].h == h)
+    struct idslot *reuse = NULL;
+    for (; l->ids[s].h; s = (s + 1) & mask) {
+        struct idslot *o = &l->ids[s];
+        if (o->t < cutoff) {
+            if (o->h == h) { /* seen, but longer ago than the horizon */
+                o->t = t;
+                return 0;
+            }
+            if (!reuse)
+                reuse = o;
+        } else if (o->h == h) {
             return 1;
-    l->ids[s].h = h;
-    l->ids[s].t = t;
-    l->ids_n++;
+        }
+    }
+    if (!reuse) {
+        reuse = &l->ids[s];
+        l->ids_n++;
+    }
+    reuse->h = h;
+    reuse->t = t;
     return 0;
 }
 

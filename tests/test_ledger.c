@@ -235,6 +235,32 @@ static void test_ledger__duplicates_by_id(void **state)
     assert_int_equal(ledger_counters(f->l)->accepted, 4);
 }
 
+/* Rule: ids are remembered for the dedup horizon of event time (24 h here),
+ * counted back from the latest event time, and no longer. Worked by hand:
+ * o1 at 11:00 is repeated at 10:59 next day (the latest time then 10:59,
+ * 1 min inside the horizon: a duplicate); o2 at 12:00 is repeated after an
+ * event at 12:01 next day (the latest time 24 h 1 min after it: not a
+ * duplicate, counted as a new outcome). The table is far from full here, so
+ * no expiry pass has run: the answer does not depend on one. */
+static void test_ledger__duplicates_within_horizon_only(void **state)
+{
+    struct fx *f = *state;
+    assign(f, "u1", "control", "2026-11-03T10:00:00Z");
+    const char *lines[] = {
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-03T11:00:00Z\",\"unit\":\"u1\",\"metric\":\"visit\",\"value\":1,\"id\":\"o1\"}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-03T12:00:00Z\",\"unit\":\"u1\",\"metric\":\"visit\",\"value\":1,\"id\":\"o2\"}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-04T10:59:00Z\",\"unit\":\"u1\",\"metric\":\"visit\",\"value\":1,\"id\":\"o1\"}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-04T12:01:00Z\",\"unit\":\"u2\",\"metric\":\"visit\",\"value\":1}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-04T12:01:00Z\",\"unit\":\"u1\",\"metric\":\"visit\",\"value\":1,\"id\":\"o2\"}",
+    };
+    for (size_t i = 0; i < sizeof lines / sizeof lines[0]; i++)
+        assert_int_equal(feed(f, lines[i]), 0);
+    ledger_finish(f->l);
+    assert_int_equal(ledger_counters(f->l)->duplicates, 1);
+    /* visits of u1 counted: o1, o2 and o2 again (ratio denominator, the window has no end) */
+    assert_rel_close(M(f, M_RATIO, CTL)->mean[1], 3, 0);
+}
+
 /* Rule: the final summary does not depend on arrival order within the
  * lateness bound (1 h here). The same six events in two orders, each at most
  * 50 minutes out of order, give the same tallies; an assignment more than an
@@ -379,6 +405,7 @@ int main(void)
         cmocka_unit_test_setup_teardown(test_ledger__cap, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__pre_period_covariate, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__duplicates_by_id, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__duplicates_within_horizon_only, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__order_within_lateness, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__orphans_and_ignored, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__tallies_match_two_pass, setup, teardown),
