@@ -18,7 +18,7 @@ static size_t round_up(size_t n, size_t to)
     return (n + to - 1) / to * to;
 }
 
-void *big_alloc(size_t bytes)
+void *big_alloc(size_t bytes, bool huge)
 {
     if (!bytes)
         bytes = 1;
@@ -29,7 +29,7 @@ void *big_alloc(size_t bytes)
         return p;
     }
     size_t n = round_up(bytes, HUGE_PAGE);
-    size_t extra = bytes >= HUGE_MIN ? HUGE_PAGE : 0;
+    size_t extra = huge && bytes >= HUGE_MIN ? HUGE_PAGE : 0;
     char *m = mmap(NULL, n + extra, PROT_READ | PROT_WRITE, MAP_PRIVATE | MAP_ANONYMOUS, -1, 0);
     if (m == MAP_FAILED)
         return NULL;

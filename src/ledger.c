@@ -295,7 +295,7 @@ static void index_put(uint64_t *ix, size_t cap, uint64_t key, uint32_t i)
 static int index_grow(struct ledger *l)
 {
     size_t cap = l->index_cap ? l->index_cap * 2 : 1024;
-    uint64_t *ix = big_alloc(cap * sizeof *ix);
+    uint64_t *ix = big_alloc(cap * sizeof *ix, true);
     if (!ix)
         return -1;
     for (uint32_t i = 0; i < l->n_recs; i++)
@@ -329,7 +329,7 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
         if (!nc)
             return NULL;
         l->chunks = nc;
-        if (!(nc[l->n_chunks] = big_alloc(CHUNK_RECS * l->stride)))
+        if (!(nc[l->n_chunks] = big_alloc(CHUNK_RECS * l->stride, l->n_chunks > 0)))
             return NULL;
         l->n_chunks++;
     }
@@ -369,7 +369,7 @@ static uint32_t pb_alloc(struct ledger *l)
             if (l->n_pchunks == PB_CHUNKS)
                 return 0;
             size_t n = l->n_pchunks ? (size_t)cap : PB0;
-            if (!(l->pchunk[l->n_pchunks] = big_alloc(n * sizeof(struct pblk))))
+            if (!(l->pchunk[l->n_pchunks] = big_alloc(n * sizeof(struct pblk), true)))
                 return 0;
             l->n_pchunks++;
         }
@@ -716,7 +716,7 @@ static int ids_rebuild(struct ledger *l, size_t cap)
         ids_expire(l);
         return 0;
     }
-    struct idslot *ni = big_alloc(cap * sizeof *ni);
+    struct idslot *ni = big_alloc(cap * sizeof *ni, true);
     if (!ni)
         return -1;
     int64_t cutoff = ids_cutoff(l);
@@ -1139,9 +1139,10 @@ static void prefetch_record(const struct ledger *l, uint64_t key)
 {
     const char *r = (const char *)index_guess(l, key);
     if (r) {
-        for (size_t o = 0; o < l->lay->rec_size; o += 64) /* every line it spans */
+        for (size_t o = 0; o < l->lay->rec_size; o += 64)
             __builtin_prefetch(r + o, 1);
-        __builtin_prefetch(r + l->lay->rec_size - 1, 1);
+        if (l->stride > 64) /* not on line boundaries: its end may be on one line more */
+            __builtin_prefetch(r + l->lay->rec_size - 1, 1);
     }
 }
 
@@ -1581,7 +1582,7 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
     size_t cap = 4096;
     while (cap < ni * 2 + 2)
         cap *= 2;
-    if (!(l->ids = big_alloc(cap * sizeof *l->ids)))
+    if (!(l->ids = big_alloc(cap * sizeof *l->ids, true)))
         return load_fail(l, e, "out of memory");
     l->ids_cap = cap;
     for (uint64_t i = 0; i < ni; i++) {
