@@ -78,18 +78,18 @@ static void collect_unit(void *ctx, uint64_t key, int arm, const double *values)
     c->refs[c->n++] = (struct unit_ref){key, values, arm};
 }
 
-/* Sorts n refs by key, least significant byte first (a stable counting sort
- * per byte, through tmp of n refs); bytes all keys share are skipped. For
- * millions of units it takes a fraction of a comparison sort. Returns the
- * array that holds the result (refs or tmp). */
-static struct unit_ref *sort_by_key(struct unit_ref *refs, struct unit_ref *tmp, size_t n)
+/* Sorts n refs by the low `bytes` bytes of their keys, least significant
+ * first (a stable counting sort per byte, through tmp of n refs); bytes all
+ * keys share are skipped. The result is left in refs. */
+static void sort_low_bytes(struct unit_ref *refs, struct unit_ref *tmp, size_t n, int bytes)
 {
     size_t count[8][256] = {{0}};
     for (size_t i = 0; i < n; i++)
-        for (int b = 0; b < 8; b++)
+        for (int b = 0; b < bytes; b++)
             count[b][(refs[i].key >> (8 * b)) & 0xff]++;
-    for (int b = 0; b < 8; b++) {
-        if (n && count[b][(refs[0].key >> (8 * b)) & 0xff] == n)
+    struct unit_ref *from = refs, *to = tmp;
+    for (int b = 0; b < bytes; b++) {
+        if (n && count[b][(from[0].key >> (8 * b)) & 0xff] == n)
             continue; /* every key has this byte */
         size_t at = 0;
         for (int d = 0; d < 256; d++) {
@@ -98,12 +98,55 @@ static struct unit_ref *sort_by_key(struct unit_ref *refs, struct unit_ref *tmp,
             at += c;
         }
         for (size_t i = 0; i < n; i++)
-            tmp[count[b][(refs[i].key >> (8 * b)) & 0xff]++] = refs[i];
-        struct unit_ref *t = refs;
-        refs = tmp;
-        tmp = t;
+            to[count[b][(from[i].key >> (8 * b)) & 0xff]++] = from[i];
+        struct unit_ref *t = from;
+        from = to;
+        to = t;
     }
-    return refs;
+    if (from != refs)
+        memcpy(refs, from, n * sizeof *refs);
+}
+
+/* Sorts n refs by key: in place by the top byte (the cycles of an American
+ * flag sort), then each of the 256 runs by the other bytes, through a buffer
+ * the size of the longest run. For millions of units it takes a fraction of
+ * a comparison sort, and the buffer stays small (keys are hashes, evenly
+ * spread). Returns -1 when out of memory. */
+static int sort_by_key(struct unit_ref *a, size_t n)
+{
+    size_t count[256] = {0}, next[256], most = 0;
+    for (size_t i = 0; i < n; i++)
+        count[a[i].key >> 56]++;
+    for (size_t d = 0, at = 0; d < 256; d++) {
+        next[d] = at;
+        at += count[d];
+        if (count[d] > most)
+            most = count[d];
+    }
+    size_t start[256];
+    memcpy(start, next, sizeof start);
+    for (int b = 0; b < 256; b++) {
+        size_t end = start[b] + count[b];
+        for (size_t i = next[b]; i < end; i = next[b]) {
+            struct unit_ref x = a[i];
+            int d = (int)(x.key >> 56);
+            while (d != b) { /* x belongs to run d: put it there, carry on with what it displaces */
+                struct unit_ref y = a[next[d]];
+                a[next[d]++] = x;
+                x = y;
+                d = (int)(x.key >> 56);
+            }
+            a[i] = x;
+            next[b]++;
+        }
+    }
+    struct unit_ref *tmp = malloc((most ? most : 1) * sizeof *tmp);
+    if (!tmp)
+        return -1;
+    for (int b = 0; b < 256; b++)
+        sort_low_bytes(a + start[b], tmp, count[b], 7);
+    free(tmp);
+    return 0;
 }
 
 int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *const *ls, int n,
@@ -141,16 +184,16 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
     if (!canonical)
         return AB_OK;
     struct collect c = {malloc((total ? total : 1) * sizeof *c.refs), 0};
-    struct unit_ref *tmp = malloc((total ? total : 1) * sizeof *tmp);
-    if (!c.refs || !tmp) {
-        free(c.refs);
-        free(tmp);
+    if (!c.refs)
         return err_set(e, AB_EINPUT, "out of memory");
-    }
     for (int i = 0; i < n; i++)
         if (ls[i])
             ledger_each_unit(ls[i], collect_unit, &c);
-    const struct unit_ref *u = sort_by_key(c.refs, tmp, c.n);
+    if (sort_by_key(c.refs, c.n)) {
+        free(c.refs);
+        return err_set(e, AB_EINPUT, "out of memory");
+    }
+    const struct unit_ref *u = c.refs;
     double v[MOM_MAXV];
     for (size_t i = 0; i < c.n; i++) {
         if (i + 16 < c.n) /* the values sit in the records, in no order the cache can guess */
@@ -161,7 +204,6 @@ int tallies_collect(struct tallies *t, const struct layout *lay, struct ledger *
         }
     }
     free(c.refs);
-    free(tmp);
     return AB_OK;
 }
 
