@@ -4,7 +4,7 @@
 # Adapters (source, state, engine, render, kafka, sig, cmd_*) are not checked.
 set -eu
 cd "$(dirname "$0")/.."
-CORE="moments ledger timefmt hash stats seq seqrun readout report rebucket simulate"
+CORE="moments ledger bigmem timefmt hash stats seq seqrun readout report rebucket simulate"
 bad=0
 for m in $CORE; do
     f=src/$m.c
