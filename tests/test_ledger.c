@@ -215,6 +215,85 @@ static void test_ledger__pre_period_covariate(void **state)
     assert_rel_close(M(f, M_BOUGHT, TRT)->mean[1], 1, 0);
 }
 
+/* A growable byte buffer for ledger_save. */
+struct membuf {
+    char *p;
+    size_t n, cap;
+};
+
+static int membuf_write(void *ctx, const void *p, size_t n)
+{
+    struct membuf *b = ctx;
+    if (b->n + n > b->cap) {
+        size_t cap = b->cap ? b->cap : 4096;
+        while (cap < b->n + n)
+            cap *= 2;
+        char *np = realloc(b->p, cap);
+        if (!np)
+            return -1;
+        b->p = np;
+        b->cap = cap;
+    }
+    memcpy(b->p + b->n, p, n);
+    b->n += n;
+    return 0;
+}
+
+/* Feeds one line to ledger l (test_ledger's feed works on the fixture's). */
+static void feed_to(struct fx *f, struct ledger *l, const char *line)
+{
+    struct event ev;
+    assert_int_equal(decoder_decode(f->dec, line, strlen(line), &ev), REJ_NONE);
+    assert_int_equal(ledger_apply(l, &ev), 0);
+}
+
+/* Rule: the covariate is the pre-period sum, however many outcomes wait for
+ * the exposure and whatever happens to them meanwhile. Seven pre-period
+ * outcomes of u1 (more than one pending block) wait; a sweep drops the oldest
+ * (more than pre_days before the watermark); the ledger is saved and loaded;
+ * both copies then take the same assignment and, 30 minutes late, an earlier
+ * one, which recomputes the values from the list again. Worked by hand:
+ * exposure 11-10T09:30, pre-period [11-03T09:30, 11-10T09:30): the outcomes
+ * of 11-04 .. 11-08, 1 + 2 + 3 + 4 + 5 + 6 = 21 (11-01's 100 is out), and
+ * the spend of 11-10T12:00, 7, in the window. */
+static void test_ledger__long_pending_lists_survive_sweeps_and_snapshots(void **state)
+{
+    struct fx *f = *state;
+    static const struct {
+        const char *t;
+        double v;
+    } pre[] = {{"2026-11-01T12:00:00Z", 100}, {"2026-11-04T12:00:00Z", 1}, {"2026-11-05T12:00:00Z", 2},
+               {"2026-11-06T11:00:00Z", 3},   {"2026-11-06T12:00:00Z", 4}, {"2026-11-07T12:00:00Z", 5},
+               {"2026-11-08T12:00:00Z", 6}};
+    char b[512];
+    for (size_t i = 0; i < sizeof pre / sizeof pre[0]; i++) {
+        snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"u1\",\"metric\":\"spend\",\"value\":%g}",
+                 pre[i].t, pre[i].v);
+        feed_to(f, f->l, b);
+    }
+    /* another unit's events move the watermark past 11-09: daily sweeps run */
+    feed_to(f, f->l, "{\"kind\":\"outcome\",\"time\":\"2026-11-09T12:00:00Z\",\"unit\":\"u9\",\"metric\":\"visit\",\"value\":1}");
+    feed_to(f, f->l, "{\"kind\":\"outcome\",\"time\":\"2026-11-10T09:40:00Z\",\"unit\":\"u9\",\"metric\":\"visit\",\"value\":1}");
+    struct membuf mb = {0};
+    assert_int_equal(ledger_save(f->l, membuf_write, &mb), 0);
+    struct err e;
+    struct ledger *copy = ledger_load(&f->lay, mb.p, mb.n, &e);
+    free(mb.p);
+    assert_non_null(copy);
+    struct ledger *both[2] = {f->l, copy};
+    for (int k = 0; k < 2; k++) {
+        feed_to(f, both[k], "{\"kind\":\"assign\",\"time\":\"2026-11-10T10:00:00Z\",\"unit\":\"u1\",\"exp\":\"bakery-banner\",\"arm\":\"treatment\"}");
+        feed_to(f, both[k], "{\"kind\":\"assign\",\"time\":\"2026-11-10T09:30:00Z\",\"unit\":\"u1\",\"exp\":\"bakery-banner\",\"arm\":\"treatment\"}");
+        feed_to(f, both[k], "{\"kind\":\"outcome\",\"time\":\"2026-11-10T12:00:00Z\",\"unit\":\"u1\",\"metric\":\"spend\",\"value\":7}");
+        ledger_finish(both[k]);
+        const struct moments *m = ledger_moments(both[k], M_SPEND, TRT);
+        assert_int_equal(ledger_units(both[k], TRT), 1);
+        assert_rel_close(m->mean[0], 7, 0);
+        assert_rel_close(m->mean[1], 21, 0);
+    }
+    ledger_free(copy);
+}
+
 /* Rule: a repeated id is a duplicate, counted once and in duplicates. */
 static void test_ledger__duplicates_by_id(void **state)
 {
@@ -404,6 +483,7 @@ int main(void)
         cmocka_unit_test_setup_teardown(test_ledger__per_unit_values, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__cap, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__pre_period_covariate, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__long_pending_lists_survive_sweeps_and_snapshots, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__duplicates_by_id, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__duplicates_within_horizon_only, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__order_within_lateness, setup, teardown),
