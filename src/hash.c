@@ -18,11 +18,14 @@ const struct hash_key HASH_KEY_DEFAULT = {UINT64_C(0x616274616c6c7931), UINT64_C
         v2 += v1; v1 = ROTL(v1, 17); v1 ^= v2; v2 = ROTL(v2, 32);                        \
     } while (0)
 
+/* The 8 bytes at p as a little-endian number (one load on most machines). */
 static uint64_t load64(const unsigned char *p)
 {
-    uint64_t v = 0;
-    for (int i = 7; i >= 0; i--)
-        v = (v << 8) | p[i];
+    uint64_t v;
+    memcpy(&v, p, sizeof v);
+#if defined(__BYTE_ORDER__) && __BYTE_ORDER__ == __ORDER_BIG_ENDIAN__
+    v = __builtin_bswap64(v);
+#endif
     return v;
 }
 
@@ -42,8 +45,17 @@ uint64_t siphash24(const struct hash_key *key, const void *data, size_t len)
         v0 ^= m;
     }
     uint64_t b = (uint64_t)len << 56;
-    for (size_t i = 0; i < len % 8; i++)
-        b |= (uint64_t)in[end + i] << (8 * i);
+    const unsigned char *t = in + end;
+    switch (len % 8) { /* the last 0..7 bytes, little-endian */
+    case 7: b |= (uint64_t)t[6] << 48; /* fall through */
+    case 6: b |= (uint64_t)t[5] << 40; /* fall through */
+    case 5: b |= (uint64_t)t[4] << 32; /* fall through */
+    case 4: b |= (uint64_t)t[3] << 24; /* fall through */
+    case 3: b |= (uint64_t)t[2] << 16; /* fall through */
+    case 2: b |= (uint64_t)t[1] << 8;  /* fall through */
+    case 1: b |= (uint64_t)t[0]; break;
+    default: break;
+    }
     v3 ^= b;
     SIPROUND;
     SIPROUND;
