@@ -24,8 +24,16 @@
 /* Parses an RFC 3339 date-time of n bytes into *us. Returns 0, or -1 when malformed. */
 int time_parse_rfc3339(const char *s, size_t n, int64_t *us);
 
-/* The same without the fast path for the common forms (for tests: the two
- * must agree on every input). */
+/* The same, remembering the day of the last date read in *c (zeroed before
+ * first use; NULL: no cache): the hot path of the event decoder. */
+struct time_day_cache {
+    char date[10]; /* "YYYY-MM-DD" of a valid date, or zeros */
+    int64_t day;   /* its days since 1970-01-01 */
+};
+int time_parse_rfc3339_cached(const char *s, size_t n, int64_t *us, struct time_day_cache *c);
+
+/* The same without the fast path for the common forms (for tests: they must
+ * agree on every input). */
 int time_parse_rfc3339_general(const char *s, size_t n, int64_t *us);
 
 /* Converts epoch milliseconds (as a double holding an integer) into *us.

@@ -68,6 +68,7 @@ struct decoder {
     size_t n_keys = 0, keys_cap = 0;
     struct decoder_ref *ref = nullptr; /* names the reason of malformed lines */
     uint64_t slow = 0;                 /* lines handed to the reference decoder */
+    struct time_day_cache days = {};   /* the day of the last date read */
 };
 
 /* The top-level fields the contract knows. */
@@ -183,7 +184,7 @@ struct attrs_seen {
 
 /* The checks of the reference's decode_obj, in its order, on a well-formed line. */
 static enum reject judge(unsigned seen, const struct slot *f, const struct attrs_seen *at,
-                         struct event *ev) noexcept
+                         struct time_day_cache *days, struct event *ev) noexcept
 {
     enum reject r;
     if (!(seen & (1u << F_KIND)))
@@ -206,7 +207,7 @@ static enum reject judge(unsigned seen, const struct slot *f, const struct attrs
     if (t->type == element_type::STRING) {
         if (t->s.empty())
             return REJ_MISSING_FIELD;
-        if (time_parse_rfc3339(t->s.data(), t->s.size(), &ev->time_us))
+        if (time_parse_rfc3339_cached(t->s.data(), t->s.size(), &ev->time_us, days))
             return REJ_BAD_TIME;
     } else if (is_number(t->type)) {
         if (time_from_epoch_ms(t->num, &ev->time_us))
@@ -310,7 +311,7 @@ static bool fast(struct decoder *d, size_t len, enum reject *r, struct event *ev
     if (seen & (1u << F_VALUE) && f[F_VALUE].type == element_type::INT64 && f[F_VALUE].num == 0 &&
         may_hold_minus_zero(d->pad, len))
         return false; /* the reference keeps the sign of "-0" */
-    *r = judge(seen, f, &at, ev);
+    *r = judge(seen, f, &at, &d->days, ev);
     return true;
 }
 

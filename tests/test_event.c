@@ -766,16 +766,21 @@ static void test_event__time_accepted_forms(void **state)
     assert_int_equal(us, INT64_C(253402300799500000));
 }
 
-/* The fast path for the common forms (timefmt.c parse_common) against the
- * general parser: the same result on every input. Property test on invented
- * strings: valid times of both common lengths, then the same with one byte
- * replaced by a digit, a separator or a letter (fixed seed). */
+/* The fast path for the common forms (timefmt.c parse_common), with and
+ * without the day cache, against the general parser: the same result on
+ * every input. Property test on invented strings: valid times of both common
+ * lengths, then the same with one byte replaced by a digit, a separator or a
+ * letter; for the cache, runs of 8 strings sharing a date, valid or not
+ * (fixed seed). */
 static void test_event__time_fast_path_agrees(void **state)
 {
     (void)state;
     static const char subst[] = "0123456789-:.TZtz +/";
     uint64_t x = 0x9e3779b97f4a7c15u;
     int accepted = 0;
+    struct time_day_cache cache;
+    memset(&cache, 0, sizeof cache);
+    char first_of_run[10] = {0};
     for (int i = 0; i < 200000; i++) {
         x ^= x << 13, x ^= x >> 7, x ^= x << 17;
         char buf[40];
@@ -788,10 +793,19 @@ static void test_event__time_fast_path_agrees(void **state)
         buf[n] = '\0';
         if ((x >> 53) % 3 == 0) /* one byte replaced */
             buf[(x >> 20) % (uint64_t)n] = subst[(x >> 9) % (sizeof subst - 1)];
-        int64_t a = 1, b = 2;
+        int64_t a = 1, b = 2, c = 3;
         int ra = time_parse_rfc3339(buf, (size_t)n, &a), rb = time_parse_rfc3339_general(buf, (size_t)n, &b);
         if (ra != rb || (ra == 0 && a != b))
             fail_msg("'%s': fast path %d %lld, general %d %lld", buf, ra, (long long)a, rb, (long long)b);
+        /* with the day cache: runs of 8 strings share the date of the run's first */
+        if (i % 8)
+            memcpy(buf, first_of_run, 10);
+        else
+            memcpy(first_of_run, buf, 10);
+        ra = time_parse_rfc3339_cached(buf, (size_t)n, &c, &cache);
+        rb = time_parse_rfc3339_general(buf, (size_t)n, &b);
+        if (ra != rb || (ra == 0 && c != b))
+            fail_msg("'%s': cached %d %lld, general %d %lld", buf, ra, (long long)c, rb, (long long)b);
         accepted += ra == 0;
     }
     assert_true(accepted > 10000); /* the property was checked on many valid times */
