@@ -103,6 +103,8 @@ struct idslot {
  * (whose strings are gone by the time it is applied). */
 struct qev {
     uint64_t key;   /* SipHash of the unit id */
+    struct urec *rec; /* the record the index named at the record step: probably the
+                         unit's (unit_of checks), NULL when none or after records moved */
     uint64_t idh;   /* SipHash of the id (scoped by unit), when has_id */
     int64_t t;      /* event time */
     double value;   /* outcome value */
@@ -941,6 +943,8 @@ static void sweep(struct ledger *l)
         memset(l->index, 0, l->index_cap * sizeof *l->index);
         for (uint32_t i = 0; i < l->n_recs; i++)
             index_put(l->index, l->index_cap, rec_at(l, i)->key, i);
+        for (int k = 0; k < LOOKAHEAD; k++) /* queued events' records may have moved */
+            l->ring[k].rec = NULL;
     }
     l->last_sweep = wm;
     l->pend_after_sweep = l->pend_used;
@@ -963,6 +967,16 @@ static void maybe_sweep(struct ledger *l)
 
 /* ---------------------------------------------------------------- apply */
 
+/* The record of a queued event's unit: the one found at its record step when
+ * the key matches (records move only in a sweep's compaction, which forgets
+ * every such guess), else looked up; created when `create`. */
+static struct urec *unit_of(struct ledger *l, const struct qev *q, bool create)
+{
+    if (q->rec && q->rec->key == q->key)
+        return q->rec;
+    return unit_find(l, q->key, create);
+}
+
 static int apply_assign(struct ledger *l, const struct qev *q)
 {
     const struct config *cfg = l->cfg;
@@ -984,7 +998,7 @@ static int apply_assign(struct ledger *l, const struct qev *q)
         if (q->hash_check == HASH_MISMATCH)
             l->cnt.hash_mismatch++;
     }
-    struct urec *r = unit_find(l, q->key, true);
+    struct urec *r = unit_of(l, q, true);
     if (!r)
         return -1;
     if (r->arm == ARM_NONE) {
@@ -1035,7 +1049,7 @@ static int apply_outcome_event(struct ledger *l, const struct qev *q)
         return REJ_NONE;
     }
     l->cnt.outcomes++;
-    struct urec *r = unit_find(l, q->key, false);
+    struct urec *r = unit_of(l, q, false);
     if (!r || r->arm == ARM_NONE) {
         int64_t wm = watermark(l);
         int64_t keep_from = wm == INT64_MIN ? INT64_MIN : wm - (l->cfg->has_covariate ? l->cfg->pre_us : 0);
@@ -1045,7 +1059,7 @@ static int apply_outcome_event(struct ledger *l, const struct qev *q)
             return REJ_NONE;
         }
         if (!r) {
-            if (!(r = unit_find(l, q->key, true)))
+            if (!(r = unit_of(l, q, true)))
                 return -1;
             set_pend_floor(l, r, INT64_MAX); /* no entry yet */
         }
@@ -1070,7 +1084,7 @@ static int apply_queued(struct ledger *l, const struct qev *q)
             return -1;
         if (seen) {
             l->cnt.duplicates++;
-            struct urec *r = unit_find(l, q->key, false);
+            struct urec *r = unit_of(l, q, false);
             if (r && (r->flags & F_FINAL)) {
                 if (in_tally(r))
                     l->cnt.dup_by_arm[r->arm]++;
@@ -1135,9 +1149,9 @@ static const struct urec *index_guess(const struct ledger *l, uint64_t key)
     return NULL;
 }
 
-static void prefetch_record(const struct ledger *l, uint64_t key)
+static void prefetch_record(const struct ledger *l, struct qev *q)
 {
-    const char *r = (const char *)index_guess(l, key);
+    const char *r = (const char *)(q->rec = (struct urec *)index_guess(l, q->key));
     if (r) {
         for (size_t o = 0; o < l->lay->rec_size; o += 64)
             __builtin_prefetch(r + o, 1);
@@ -1146,11 +1160,10 @@ static void prefetch_record(const struct ledger *l, uint64_t key)
     }
 }
 
-static void prefetch_pending(const struct ledger *l, uint64_t key)
+static void prefetch_pending(const struct ledger *l, const struct qev *q)
 {
-    const struct urec *r = index_guess(l, key);
-    if (r && r->pend)
-        __builtin_prefetch(pb(l, r->pend), 1);
+    if (q->rec && q->rec->pend)
+        __builtin_prefetch(pb(l, q->rec->pend), 1);
 }
 
 int ledger_apply(struct ledger *l, const struct event *ev)
@@ -1175,6 +1188,7 @@ int ledger_apply(struct ledger *l, const struct event *ev)
     /* everything that needs the event's strings happens now */
     struct qev *q = &l->ring[(l->q_head + l->q_n) & (LOOKAHEAD - 1)];
     q->key = key;
+    q->rec = NULL;
     q->t = ev->time_us;
     q->kind = (uint8_t)ev->kind;
     q->has_id = ev->id.p != NULL;
@@ -1206,9 +1220,9 @@ int ledger_apply(struct ledger *l, const struct event *ev)
     prefetch_index(l, key);
     l->q_n++;
     if (l->q_n > LOOKAHEAD_RECORD)
-        prefetch_record(l, l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_RECORD) & (LOOKAHEAD - 1)].key);
+        prefetch_record(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_RECORD) & (LOOKAHEAD - 1)]);
     if (l->q_n > LOOKAHEAD_PENDING)
-        prefetch_pending(l, l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING) & (LOOKAHEAD - 1)].key);
+        prefetch_pending(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING) & (LOOKAHEAD - 1)]);
     if (l->q_n == LOOKAHEAD && apply_oldest(l) < 0)
         return -1;
     return REJ_NONE;
