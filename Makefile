@@ -127,7 +127,7 @@ fuzz:
 	$(Q)FUZZ_SECONDS=$(FUZZ_SECONDS) sh fuzz/run.sh $(FUZZ_BUILD) $(FUZZ_TARGETS)
 
 fuzz-bins: $(FUZZ_TARGETS:%=$(BUILD)/%)
-$(BUILD)/fuzz_%: fuzz/fuzz_%.c fuzz/fuzz_common.h $(BUILD)/libcore.a
+$(BUILD)/fuzz_%: fuzz/fuzz_%.c fuzz/fuzz_common.h tests/bytebuf.h $(BUILD)/libcore.a
 	@mkdir -p $(BUILD)/fuzzobj
 	@$(if $(Q),echo "  FUZZ    $<")
 	$(Q)$(CC) $(CFLAGS) -Ifuzz -c $< -o $(BUILD)/fuzzobj/$*.o

@@ -1,7 +1,8 @@
 /*
  * fuzz_common.h — shared pieces of the libFuzzer harnesses (fuzz/fuzz_*.c): the
  * fixed experiment config the decoder, ledger and snapshot harnesses run
- * against, a growable byte buffer for ledger_save, and a line splitter.
+ * against, and the layout built from it (the growable byte buffer they
+ * ledger_save into is tests/bytebuf.h, shared with the cmocka suites).
  *
  * The config exercises every metric type, a cap, an attribution window, the
  * covariate and the hash re-check of assignments, so that fuzzed events reach
@@ -19,6 +20,7 @@
 #include "config.h"
 #include "err.h"
 #include "ledger.h"
+#include "../tests/bytebuf.h"
 
 static const char FUZZ_CONFIG[] =
     "{\"experiment\": \"lamp-shop-banner\",\n"
@@ -54,30 +56,6 @@ static inline const struct layout *fuzz_layout(void)
         ready = 1;
     }
     return &fuzz_lay;
-}
-
-/* A growable buffer for ledger_save. */
-struct fuzz_buf {
-    unsigned char *p;
-    size_t n, cap;
-};
-
-static inline int fuzz_buf_write(void *ctx, const void *p, size_t n)
-{
-    struct fuzz_buf *b = ctx;
-    if (b->n + n > b->cap) {
-        size_t cap = b->cap ? b->cap : 4096;
-        while (cap < b->n + n)
-            cap *= 2;
-        unsigned char *q = realloc(b->p, cap);
-        if (!q)
-            return -1;
-        b->p = q;
-        b->cap = cap;
-    }
-    memcpy(b->p + b->n, p, n);
-    b->n += n;
-    return 0;
 }
 
 #endif

@@ -127,8 +127,8 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     size_t units = 0;
     ledger_each_unit(l, count_unit, &units);
 
-    struct fuzz_buf b = {0};
-    if (ledger_save(l, fuzz_buf_write, &b) == 0) {
+    struct byte_buf b = {0};
+    if (ledger_save(l, byte_buf_write, &b) == 0) {
         struct err e;
         err_clear(&e);
         struct ledger *back = ledger_load(lay, b.p, b.n, &e);

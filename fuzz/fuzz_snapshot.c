@@ -80,8 +80,8 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     ledger_finish(l);
     n = 0;
     ledger_each_unit(l, visit, &n);
-    struct fuzz_buf b = {0};
-    if (ledger_save(l, fuzz_buf_write, &b) == 0) {
+    struct byte_buf b = {0};
+    if (ledger_save(l, byte_buf_write, &b) == 0) {
         struct ledger *back = ledger_load(lay, b.p, b.n, &e);
         if (!back) {
             fprintf(stderr, "fuzz_snapshot: ledger_load refused ledger_save's output: %s\n", e.msg);

@@ -136,8 +136,8 @@ static void feed(struct ledger *l, const char *log)
 
 static void save_section(const struct ledger *l, const char *name)
 {
-    struct fuzz_buf b = {0};
-    if (ledger_save(l, fuzz_buf_write, &b)) {
+    struct byte_buf b = {0};
+    if (ledger_save(l, byte_buf_write, &b)) {
         fprintf(stderr, "make_seeds: ledger_save failed\n");
         exit(1);
     }

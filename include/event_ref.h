@@ -21,6 +21,11 @@ void decoder_jansson_free(struct decoder_ref *d);
 /* Decodes line[0..len) (no trailing newline) into *ev: REJ_NONE or a reason. */
 enum reject decoder_jansson_decode(struct decoder_ref *d, const char *line, size_t len, struct event *ev);
 
+/* What both decoders check before parsing: a line over EVENT_MAX_LINE is
+ * REJ_TOO_LONG, one of blanks (space, tab, CR) only is REJ_EMPTY; otherwise
+ * REJ_NONE with *start at its first other byte. */
+enum reject event_line_start(const char *line, size_t len, size_t *start);
+
 /* Lines the fast decoder (event.h) handed to the reference decoder so far:
  * the ones it found malformed or could not take whole. For tests and the
  * benchmark (a well-formed event line should never be among them). */

@@ -144,13 +144,10 @@ enum reject decoder_jansson_decode(struct decoder_ref *d, const char *line, size
 {
     memset(ev, 0, sizeof *ev);
     ev->value = 1.0;
-    if (len > EVENT_MAX_LINE)
-        return REJ_TOO_LONG;
-    size_t i = 0;
-    while (i < len && (line[i] == ' ' || line[i] == '\t' || line[i] == '\r'))
-        i++;
-    if (i == len)
-        return REJ_EMPTY;
+    size_t start;
+    enum reject pre = event_line_start(line, len, &start);
+    if (pre != REJ_NONE)
+        return pre;
     /* Every string of the event is a substring of the line, so len bytes suffice. */
     if (d->cap < len + 1) {
         size_t cap = len + 1 > 4096 ? len + 1 : 4096;

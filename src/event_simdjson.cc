@@ -357,13 +357,10 @@ extern "C" enum reject decoder_decode(struct decoder *d, const char *line, size_
                                       struct event *ev)
 {
     ev_clear(ev);
-    if (len > EVENT_MAX_LINE)
-        return REJ_TOO_LONG;
-    size_t i = 0;
-    while (i < len && (line[i] == ' ' || line[i] == '\t' || line[i] == '\r'))
-        i++;
-    if (i == len)
-        return REJ_EMPTY;
+    size_t i;
+    enum reject pre = event_line_start(line, len, &i);
+    if (pre != REJ_NONE)
+        return pre;
     /* Only an object can be an event: a byte-order mark, an array or a bare
      * value goes to the reference decoder, whatever simdjson makes of it. */
     if (line[i] == '{') {

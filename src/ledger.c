@@ -347,11 +347,17 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
 
 /* ---------------------------------------------------------------- pending */
 
+/* The first block of chunk k; for k = the number of chunks, the capacity. */
+static size_t pb_first(int k)
+{
+    return k ? (size_t)PB0 << (k - 1) : 0;
+}
+
 static struct pblk *pb(const struct ledger *l, uint32_t i)
 {
     uint32_t q = i >> PB0_SHIFT;
     int k = q ? 32 - __builtin_clz(q) : 0;
-    return &l->pchunk[k][i - (k ? PB0 << (k - 1) : 0)];
+    return &l->pchunk[k][i - pb_first(k)];
 }
 
 /* A free block (n = 0, next = 0), 0 when out of memory. Released blocks are
@@ -366,12 +372,12 @@ static uint32_t pb_alloc(struct ledger *l)
     } else {
         if (!l->pb_top)
             l->pb_top = 1; /* block 0 is the null link */
-        uint32_t cap = l->n_pchunks ? PB0 << (l->n_pchunks - 1) : 0;
-        if (l->pb_top >= cap) {
-            if (l->n_pchunks == PB_CHUNKS)
-                return 0;
-            size_t n = l->n_pchunks ? (size_t)cap : PB0;
-            if (!(l->pchunk[l->n_pchunks] = big_alloc(n * sizeof(struct pblk), true)))
+        if (l->pb_top == UINT32_MAX)
+            return 0; /* block numbers are 32-bit */
+        if (l->pb_top >= pb_first(l->n_pchunks)) {
+            int k = l->n_pchunks;
+            if (k == PB_CHUNKS ||
+                !(l->pchunk[k] = big_alloc((pb_first(k + 1) - pb_first(k)) * sizeof(struct pblk), true)))
                 return 0;
             l->n_pchunks++;
         }
@@ -391,7 +397,7 @@ static void pb_release(struct ledger *l, uint32_t i)
 
 static size_t pb_bytes(const struct ledger *l)
 {
-    return l->n_pchunks ? ((size_t)PB0 << (l->n_pchunks - 1)) * sizeof(struct pblk) : 0;
+    return pb_first(l->n_pchunks) * sizeof(struct pblk);
 }
 
 /* A unit not yet exposed has all its values at zero (they are computed from
@@ -1280,7 +1286,7 @@ void ledger_free(struct ledger *l)
     free(l->chunks);
     big_free(l->index, l->index_cap * sizeof *l->index);
     for (int k = 0; k < l->n_pchunks; k++)
-        big_free(l->pchunk[k], (k ? (size_t)PB0 << (k - 1) : PB0) * sizeof(struct pblk));
+        big_free(l->pchunk[k], (pb_first(k + 1) - pb_first(k)) * sizeof(struct pblk));
     big_free(l->ids, l->ids_cap * sizeof *l->ids);
     free(l->multi);
     free(l->days);

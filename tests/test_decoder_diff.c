@@ -25,6 +25,7 @@
 #include <sys/stat.h>
 
 #include "helpers.h"
+#include "bytebuf.h"
 #include "event.h"
 #include "event_ref.h"
 
@@ -144,24 +145,12 @@ static void finish(struct diff *t, const char *what)
 
 /* ---------------------------------------------------------------- files */
 
-struct buf {
-    char *p;
-    size_t n, cap;
-};
-
-static void buf_add(struct buf *b, const char *s, size_t n)
+static void buf_add(struct byte_buf *b, const char *s, size_t n)
 {
-    if (b->n + n + 1 > b->cap) {
-        b->cap = (b->n + n + 1) * 2;
-        b->p = realloc(b->p, b->cap);
-        assert_non_null(b->p);
-    }
-    memcpy(b->p + b->n, s, n);
-    b->n += n;
-    b->p[b->n] = '\0';
+    assert_int_equal(byte_buf_write(b, s, n), 0);
 }
 
-static bool read_file(const char *path, struct buf *out)
+static bool read_file(const char *path, struct byte_buf *out)
 {
     FILE *f = fopen(path, "rb");
     if (!f)
@@ -210,7 +199,7 @@ static void corpus_free(struct corpus *c)
  * handed on. */
 static unsigned long compare_file(struct diff *t, const char *path, struct corpus *c, unsigned long *slow)
 {
-    struct buf b = {0};
+    struct byte_buf b = {0};
     if (!read_file(path, &b))
         fail_msg("cannot read %s", path);
     unsigned long ok = 0;
@@ -426,7 +415,7 @@ static void test_decoder_diff__deep_nesting(void **state)
     static const int depths[] = {1, 2, 63, 64, 65, 100, 1023, 1024, 1025, 2046, 2047, 2048, 2049, 5000};
     for (size_t k = 0; k < sizeof depths / sizeof depths[0]; k++) {
         for (int variant = 0; variant < 3; variant++) {
-            struct buf b = {0};
+            struct byte_buf b = {0};
             const char *head = "{\"kind\":\"outcome\",\"time\":1793701300000,\"unit\":\"u1\",\"metric\":\"m\",\"x\":";
             buf_add(&b, head, strlen(head));
             for (int i = 0; i < depths[k]; i++)

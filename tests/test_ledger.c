@@ -12,6 +12,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "bytebuf.h"
 #include "helpers.h"
 #include "config.h"
 #include "event.h"
@@ -215,30 +216,6 @@ static void test_ledger__pre_period_covariate(void **state)
     assert_rel_close(M(f, M_BOUGHT, TRT)->mean[1], 1, 0);
 }
 
-/* A growable byte buffer for ledger_save. */
-struct membuf {
-    char *p;
-    size_t n, cap;
-};
-
-static int membuf_write(void *ctx, const void *p, size_t n)
-{
-    struct membuf *b = ctx;
-    if (b->n + n > b->cap) {
-        size_t cap = b->cap ? b->cap : 4096;
-        while (cap < b->n + n)
-            cap *= 2;
-        char *np = realloc(b->p, cap);
-        if (!np)
-            return -1;
-        b->p = np;
-        b->cap = cap;
-    }
-    memcpy(b->p + b->n, p, n);
-    b->n += n;
-    return 0;
-}
-
 /* Feeds one line to ledger l (test_ledger's feed works on the fixture's). */
 static void feed_to(struct fx *f, struct ledger *l, const char *line)
 {
@@ -274,8 +251,8 @@ static void test_ledger__long_pending_lists_survive_sweeps_and_snapshots(void **
     /* another unit's events move the watermark past 11-09: daily sweeps run */
     feed_to(f, f->l, "{\"kind\":\"outcome\",\"time\":\"2026-11-09T12:00:00Z\",\"unit\":\"u9\",\"metric\":\"visit\",\"value\":1}");
     feed_to(f, f->l, "{\"kind\":\"outcome\",\"time\":\"2026-11-10T09:40:00Z\",\"unit\":\"u9\",\"metric\":\"visit\",\"value\":1}");
-    struct membuf mb = {0};
-    assert_int_equal(ledger_save(f->l, membuf_write, &mb), 0);
+    struct byte_buf mb = {0};
+    assert_int_equal(ledger_save(f->l, byte_buf_write, &mb), 0);
     struct err e;
     struct ledger *copy = ledger_load(&f->lay, mb.p, mb.n, &e);
     free(mb.p);

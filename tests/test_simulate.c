@@ -12,31 +12,17 @@
 
 #include "helpers.h"
 #include "config.h"
+#include "bytebuf.h"
 #include "event.h"
 #include "simulate.h"
 #include "timefmt.h"
 
 /* ---------------------------------------------------------------- helpers */
 
-struct buf {
-    char *p;
-    size_t n, cap;
-};
-
+/* A sim_sink into a struct byte_buf. */
 static int buf_sink(void *ctx, const char *b, size_t len)
 {
-    struct buf *x = ctx;
-    if (x->n + len > x->cap) {
-        size_t cap = (x->n + len) * 2;
-        char *p = realloc(x->p, cap);
-        if (!p)
-            return 1;
-        x->p = p;
-        x->cap = cap;
-    }
-    memcpy(x->p + x->n, b, len);
-    x->n += len;
-    return 0;
+    return byte_buf_write(ctx, b, len) ? 1 : 0;
 }
 
 static int refusing_sink(void *ctx, const char *b, size_t len)
@@ -48,9 +34,9 @@ static int refusing_sink(void *ctx, const char *b, size_t len)
 }
 
 /* Runs the generator into memory; the caller frees .p. */
-static struct buf run(const struct sim_opts *o, struct sim_stats *st)
+static struct byte_buf run(const struct sim_opts *o, struct sim_stats *st)
 {
-    struct buf b = {0};
+    struct byte_buf b = {0};
     struct err e;
     err_clear(&e);
     int rc = sim_run(o, buf_sink, &b, st, &e);
@@ -142,7 +128,7 @@ static void bad_line(struct scan *sc, const char *why, const char *line, size_t 
 
 /* Decodes every line of b: the assignments (exposure and arm per unit), and
  * when outcomes is set, a second pass for the outcomes against them. */
-static void scan_log(const struct sim_opts *o, const struct buf *b, struct scan *sc, bool outcomes)
+static void scan_log(const struct sim_opts *o, const struct byte_buf *b, struct scan *sc, bool outcomes)
 {
     memset(sc, 0, sizeof *sc);
     sc->schema_ok = true;
@@ -271,7 +257,7 @@ static void scan_log(const struct sim_opts *o, const struct buf *b, struct scan 
     decoder_free(d);
 }
 
-static void scan(const struct sim_opts *o, const struct buf *b, struct scan *sc)
+static void scan(const struct sim_opts *o, const struct byte_buf *b, struct scan *sc)
 {
     scan_log(o, b, sc, false);
 }
@@ -298,13 +284,13 @@ static void test_simulate__same_seed_same_bytes(void **state)
     fault(&o, "lose-assign:treatment:0.05:3");
     fault(&o, "self-select:0.5");
     struct sim_stats s1, s2, s3;
-    struct buf a = run(&o, &s1), b = run(&o, &s2);
+    struct byte_buf a = run(&o, &s1), b = run(&o, &s2);
     assert_true(a.n > 0);
     assert_int_equal(a.n, b.n);
     assert_memory_equal(a.p, b.p, a.n);
     assert_memory_equal(&s1, &s2, sizeof s1);
     o.seed = 2;
-    struct buf c = run(&o, &s3);
+    struct byte_buf c = run(&o, &s3);
     assert_false(c.n == a.n && !memcmp(a.p, c.p, a.n));
     free(a.p);
     free(b.p);
@@ -317,10 +303,10 @@ static void test_simulate__faults_keep_the_events(void **state)
     (void)state;
     struct sim_opts o;
     small_opts(&o, 1000);
-    struct buf a = run(&o, NULL);
+    struct byte_buf a = run(&o, NULL);
     fault(&o, "late:0.5:45m");
     struct sim_stats st;
-    struct buf b = run(&o, &st);
+    struct byte_buf b = run(&o, &st);
     assert_int_equal(a.n, b.n);
     assert_true(st.late > 0);
     assert_false(!memcmp(a.p, b.p, a.n));
@@ -346,7 +332,7 @@ static void test_simulate__schema_without_malformed_fault(void **state)
     fault(&o, "lose-assign:control:0.02");
     fault(&o, "self-select:0.3");
     struct sim_stats st;
-    struct buf b = run(&o, &st);
+    struct byte_buf b = run(&o, &st);
     struct scan sc;
     scan(&o, &b, &sc);
     if (!sc.schema_ok)
@@ -366,7 +352,7 @@ static void test_simulate__time_order(void **state)
     (void)state;
     struct sim_opts o;
     small_opts(&o, 3000);
-    struct buf b = run(&o, NULL);
+    struct byte_buf b = run(&o, NULL);
     struct scan sc;
     scan(&o, &b, &sc);
     assert_int_equal(sc.out_of_order, 0);
@@ -392,7 +378,7 @@ static void test_simulate__weights(void **state)
     assert_int_equal(sim_set_arms(&o, "control,basket,express", &e), AB_OK);
     assert_int_equal(sim_set_weights(&o, "0.6,0.3,0.1", &e), AB_OK);
     struct sim_stats st;
-    struct buf b = run(&o, &st);
+    struct byte_buf b = run(&o, &st);
     struct scan sc;
     scan(&o, &b, &sc);
     static const double w[3] = {0.6, 0.3, 0.1};
@@ -412,7 +398,7 @@ static void test_simulate__self_select_keeps_weights(void **state)
     struct err e;
     assert_int_equal(sim_set_weights(&o, "0.7,0.3", &e), AB_OK);
     fault(&o, "self-select:1");
-    struct buf b = run(&o, NULL);
+    struct byte_buf b = run(&o, NULL);
     struct scan sc;
     scan_log(&o, &b, &sc, true);
     assert_binomial("control units", (double)sc.by_arm[0], 8000, 0.7);
@@ -433,7 +419,7 @@ static void test_simulate__fault_counts(void **state)
     fault(&o, "multi-arm:0.03");
     fault(&o, "lose-assign:treatment:0.1");
     struct sim_stats st;
-    struct buf b = run(&o, &st);
+    struct byte_buf b = run(&o, &st);
     struct scan sc;
     scan(&o, &b, &sc);
     /* malformed: each broken kind is rejected for its own reason */
@@ -472,7 +458,7 @@ static void test_simulate__from_day(void **state)
     small_opts(&o, 3000);
     fault(&o, "lose-assign:treatment:1:9");
     struct sim_stats st;
-    struct buf b = run(&o, &st);
+    struct byte_buf b = run(&o, &st);
     struct decoder *d = decoder_new();
     assert_non_null(d);
     int64_t day9 = o.start_us + 8 * US_PER_DAY;
@@ -506,7 +492,7 @@ static void test_simulate__order_value_effect(void **state)
     o.conversion = 0.3;
     struct err e;
     assert_int_equal(sim_parse_effect(&o, "order_value=0.5", &e), AB_OK);
-    struct buf b = run(&o, NULL);
+    struct byte_buf b = run(&o, NULL);
     struct scan sc;
     scan_log(&o, &b, &sc, true);
     double ratio = (sc.order_sum[1] / (double)sc.orders[1]) / (sc.order_sum[0] / (double)sc.orders[0]);

@@ -17,6 +17,7 @@
 #include <zlib.h>
 
 #include "helpers.h"
+#include "bytebuf.h"
 #include "event.h"
 #include "source.h"
 
@@ -59,29 +60,12 @@ static int teardown(void **state)
     return 0;
 }
 
-/* A growable byte buffer. */
-struct buf {
-    char *p;
-    size_t n, cap;
-};
-
-static void buf_put(struct buf *b, const void *s, size_t n)
+static void buf_put(struct byte_buf *b, const void *s, size_t n)
 {
-    if (b->n + n > b->cap) {
-        size_t cap = b->cap ? b->cap : 4096;
-        while (cap < b->n + n)
-            cap *= 2;
-        char *p = realloc(b->p, cap);
-        assert_non_null(p);
-        b->p = p;
-        b->cap = cap;
-    }
-    if (n)
-        memcpy(b->p + b->n, s, n);
-    b->n += n;
+    assert_int_equal(byte_buf_write(b, s, n), 0);
 }
 
-static void buf_fill(struct buf *b, char c, size_t n)
+static void buf_fill(struct byte_buf *b, char c, size_t n)
 {
     char chunk[4096];
     memset(chunk, c, sizeof chunk);
@@ -100,7 +84,7 @@ struct want {
 
 /* A file image and the lines it must read as. */
 struct image {
-    struct buf data;
+    struct byte_buf data;
     struct want *w;
     size_t n, cap;
 };
@@ -297,7 +281,7 @@ static void test_source__gzip_members(void **state)
     static const char a[] = "one\ntwo\n", b[] = "three\r\nfour";
     write_gz(f, a, sizeof a - 1, p1, sizeof p1);
     write_gz(f, b, sizeof b - 1, p2, sizeof p2);
-    struct buf cat = {0};
+    struct byte_buf cat = {0};
     for (int k = 0; k < 2; k++) {
         FILE *fp = fopen(k ? p2 : p1, "rb");
         assert_non_null(fp);
@@ -546,7 +530,7 @@ static void test_source__directory(void **state)
 }
 
 /* Builds about 200 KiB of event-like lines. */
-static void event_lines(struct buf *b)
+static void event_lines(struct byte_buf *b)
 {
     for (int i = 0; i < 3000; i++) {
         char l[128];
@@ -558,7 +542,7 @@ static void event_lines(struct buf *b)
 }
 
 /* Reads a whole file into b. */
-static void slurp(const char *p, struct buf *b)
+static void slurp(const char *p, struct byte_buf *b)
 {
     FILE *fp = fopen(p, "rb");
     assert_non_null(fp);
@@ -577,7 +561,7 @@ static void slurp(const char *p, struct buf *b)
 static void test_source__truncated_gzip(void **state)
 {
     struct fx *f = *state;
-    struct buf plain = {0}, gz = {0};
+    struct byte_buf plain = {0}, gz = {0};
     event_lines(&plain);
     char p[320];
     write_gz(f, plain.p, plain.n, p, sizeof p);
@@ -604,7 +588,7 @@ static void test_source__truncated_gzip(void **state)
 static void test_source__corrupt_gzip(void **state)
 {
     struct fx *f = *state;
-    struct buf plain = {0}, gz = {0};
+    struct byte_buf plain = {0}, gz = {0};
     event_lines(&plain);
     char p[320];
     write_gz(f, plain.p, plain.n, p, sizeof p);
