@@ -1136,7 +1136,7 @@ static void sync(const struct ledger *cl)
  * index slot is prefetched when it is queued; LOOKAHEAD_RECORD events later,
  * its record; LOOKAHEAD_PENDING events later, the head block of the unit's
  * pending list, which its record names. */
-static void prefetch_index(const struct ledger *l, uint64_t key)
+static inline __attribute__((always_inline)) void prefetch_index(const struct ledger *l, uint64_t key)
 {
     if (l->index_cap)
         __builtin_prefetch(&l->index[key & (l->index_cap - 1)]);
@@ -1166,7 +1166,10 @@ static void prefetch_record(const struct ledger *l, struct qev *q)
     }
 }
 
-static void prefetch_pending(const struct ledger *l, const struct qev *q)
+/* always_inline: GCC takes a function whose only effect is a prefetch for a
+ * pure one, and drops its calls (it did so here: the head blocks went
+ * unprefetched until the function was inlined). */
+static inline __attribute__((always_inline)) void prefetch_pending(const struct ledger *l, const struct qev *q)
 {
     if (q->rec && q->rec->pend)
         __builtin_prefetch(pb(l, q->rec->pend), 1);
