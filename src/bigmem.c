@@ -47,6 +47,58 @@ void *big_alloc(size_t bytes, bool huge)
     return p;
 }
 
+/* Where a new reserve starts (it is RESERVE_FACTOR times the region's length). */
+#define RESERVE_MIN ((size_t)256 << 20)
+#define RESERVE_FACTOR 64
+
+int big_region_grow(struct big_region *g, size_t bytes)
+{
+    size_t n = round_up(bytes, HUGE_PAGE);
+    if (n <= g->used)
+        return 0;
+    if (n <= g->reserved) {
+        if (mprotect(g->p + g->used, n - g->used, PROT_READ | PROT_WRITE))
+            return -1;
+#ifdef MADV_HUGEPAGE
+        madvise(g->p + g->used, n - g->used, MADV_HUGEPAGE);
+#endif
+        g->used = n;
+        return 0;
+    }
+    /* a new reserve, 2 MiB aligned, nothing in it usable until made so */
+    size_t res = n > RESERVE_MIN / RESERVE_FACTOR ? n * RESERVE_FACTOR : RESERVE_MIN;
+    char *m = mmap(NULL, res + HUGE_PAGE, PROT_NONE, MAP_PRIVATE | MAP_ANONYMOUS | MAP_NORESERVE, -1, 0);
+    if (m == MAP_FAILED)
+        return -1;
+    char *p = (char *)round_up((uintptr_t)m, HUGE_PAGE);
+    if (p > m)
+        munmap(m, (size_t)(p - m));
+    if (p + res < m + res + HUGE_PAGE)
+        munmap(p + res, (size_t)(m + res + HUGE_PAGE - (p + res)));
+    if (mprotect(p, n, PROT_READ | PROT_WRITE)) {
+        munmap(p, res);
+        return -1;
+    }
+#ifdef MADV_HUGEPAGE
+    madvise(p, n, MADV_HUGEPAGE);
+#endif
+    if (g->used) {
+        memcpy(p, g->p, g->used);
+        munmap(g->p, g->reserved);
+    }
+    g->p = p;
+    g->used = n;
+    g->reserved = res;
+    return 0;
+}
+
+void big_region_free(struct big_region *g)
+{
+    if (g->p)
+        munmap(g->p, g->reserved);
+    memset(g, 0, sizeof *g);
+}
+
 void big_free(void *p, size_t bytes)
 {
     if (!p)

@@ -17,6 +17,8 @@
  *                 slot holds its pending floor (pend_floor), so sweeps skip
  *                 lists with nothing to drop;
  *   event ids     16-byte slots (hash, time), linear probing, load ≤ 0.5.
+ * The index and the id table, once 4 MiB, double in place (a bigmem region:
+ * only the new half is fresh memory).
  * Nothing is allocated per event in steady state: chunks, the index, the
  * pending blocks and the id table grow geometrically and are reused (the id
  * table drops expired ids in place, and reuses their slots). Sweeps settle
@@ -138,6 +140,7 @@ struct ledger {
     uint32_t n_recs;
     uint64_t *index; /* IX_ENTRY(key, record number + 1); 0 = empty */
     size_t index_cap;
+    struct big_region index_region; /* holds the index once it is large (TABLE_REGION_MIN) */
     /* pending outcomes */
     struct pblk *pchunk[PB_CHUNKS];
     int n_pchunks;
@@ -147,6 +150,7 @@ struct ledger {
     /* event ids */
     struct idslot *ids;
     size_t ids_cap, ids_n;
+    struct big_region ids_region; /* holds the table once it is large */
     /* multi-arm units: key → mask of arms named */
     struct multi {
         uint64_t key, mask;
@@ -294,17 +298,43 @@ static void index_put(uint64_t *ix, size_t cap, uint64_t key, uint32_t i)
     ix[s] = IX_ENTRY(key, i + 1);
 }
 
+/* From this size on, the index and the id table grow in place in a region
+ * (bigmem.h): doubling then touches only the new half. */
+#define TABLE_REGION_MIN ((size_t)4 << 20)
+
+/* Gives a table of old_bytes (at *tab; in region g when g->p) new_bytes,
+ * all zero; the old contents are lost. */
+static int table_grow(void **tab, size_t old_bytes, struct big_region *g, size_t new_bytes)
+{
+    if (new_bytes < TABLE_REGION_MIN) {
+        void *t = big_alloc(new_bytes, true);
+        if (!t)
+            return -1;
+        big_free(*tab, old_bytes);
+        *tab = t;
+        return 0;
+    }
+    bool was = g->p != NULL;
+    if (big_region_grow(g, new_bytes))
+        return -1;
+    if (was)
+        memset(g->p, 0, old_bytes); /* already held: cheap to clear */
+    else
+        big_free(*tab, old_bytes);
+    *tab = g->p;
+    return 0;
+}
+
 static int index_grow(struct ledger *l)
 {
     size_t cap = l->index_cap ? l->index_cap * 2 : 1024;
-    uint64_t *ix = big_alloc(cap * sizeof *ix, true);
-    if (!ix)
+    void *ix = l->index;
+    if (table_grow(&ix, l->index_cap * sizeof *l->index, &l->index_region, cap * sizeof *l->index))
         return -1;
-    for (uint32_t i = 0; i < l->n_recs; i++)
-        index_put(ix, cap, rec_at(l, i)->key, i);
-    big_free(l->index, l->index_cap * sizeof *l->index);
     l->index = ix;
     l->index_cap = cap;
+    for (uint32_t i = 0; i < l->n_recs; i++)
+        index_put(l->index, cap, rec_at(l, i)->key, i);
     return 0;
 }
 
@@ -724,25 +754,30 @@ static int ids_rebuild(struct ledger *l, size_t cap)
         ids_expire(l);
         return 0;
     }
-    struct idslot *ni = big_alloc(cap * sizeof *ni, true);
-    if (!ni)
-        return -1;
+    /* the ids still remembered, set aside while the table grows */
     int64_t cutoff = ids_cutoff(l);
+    struct idslot *keep = malloc((l->ids_n ? l->ids_n : 1) * sizeof *keep);
+    if (!keep)
+        return -1;
     size_t n = 0;
-    for (size_t i = 0; i < l->ids_cap; i++) {
-        struct idslot *o = &l->ids[i];
-        if (!o->h || o->t < cutoff)
-            continue;
-        size_t s = o->h & (cap - 1);
-        while (ni[s].h)
-            s = (s + 1) & (cap - 1);
-        ni[s] = *o;
-        n++;
+    for (size_t i = 0; i < l->ids_cap; i++)
+        if (l->ids[i].h && l->ids[i].t >= cutoff)
+            keep[n++] = l->ids[i];
+    void *t = l->ids;
+    if (table_grow(&t, l->ids_cap * sizeof *l->ids, &l->ids_region, cap * sizeof *l->ids)) {
+        free(keep);
+        return -1;
     }
-    big_free(l->ids, l->ids_cap * sizeof *l->ids);
-    l->ids = ni;
+    l->ids = t;
     l->ids_cap = cap;
     l->ids_n = n;
+    for (size_t i = 0; i < n; i++) {
+        size_t s = keep[i].h & (cap - 1);
+        while (l->ids[s].h)
+            s = (s + 1) & (cap - 1);
+        l->ids[s] = keep[i];
+    }
+    free(keep);
     return 0;
 }
 
@@ -1287,10 +1322,16 @@ void ledger_free(struct ledger *l)
     for (size_t i = 0; i < l->n_chunks; i++)
         big_free(l->chunks[i], CHUNK_RECS * l->stride);
     free(l->chunks);
-    big_free(l->index, l->index_cap * sizeof *l->index);
+    if (l->index_region.p)
+        big_region_free(&l->index_region);
+    else
+        big_free(l->index, l->index_cap * sizeof *l->index);
     for (int k = 0; k < l->n_pchunks; k++)
         big_free(l->pchunk[k], (pb_first(k + 1) - pb_first(k)) * sizeof(struct pblk));
-    big_free(l->ids, l->ids_cap * sizeof *l->ids);
+    if (l->ids_region.p)
+        big_region_free(&l->ids_region);
+    else
+        big_free(l->ids, l->ids_cap * sizeof *l->ids);
     free(l->multi);
     free(l->days);
     for (size_t i = 0; i < l->n_segs; i++)
