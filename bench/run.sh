@@ -99,6 +99,12 @@ say "bench: $(date -u +%Y-%m-%dT%H:%MZ), $(nproc 2>/dev/null || echo '?') cores 
 say "bench: log $LOG: $LINES lines, $MB MB, $UNITS units; $RUNS runs per figure"
 out log_lines "$LINES" lines
 out log_bytes "$BYTES" bytes
+# The lookahead's prefetches as compiled: a helper that does nothing but prefetch can be
+# dropped by the compiler (DEVELOPERS.md, Conventions); 5 with gcc 12 -O2 (index slot, id
+# slot, record, record end, pending head).
+if command -v objdump > /dev/null; then
+    out ledger_apply_prefetches "$(objdump -d --no-show-raw-insn "$AB" | awk '/<ledger_apply>:/,/^$/' | grep -c prefetch || :)" instructions
+fi
 
 # ------------------------------------------------------------------ replay and the floor
 say "bench: replay (two metrics) and the parse-only floor, alternately ..."
