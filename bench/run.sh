@@ -122,6 +122,8 @@ SLOW=$(awk '{print $3}' "$TMP/floor.out")
 REPLAY_EPS=$(calc "$LINES / $REPLAY_S" 8)
 FLOOR_EPS=$(calc "$LINES / $FLOOR_S" 8)
 RATIO=$(calc "$REPLAY_EPS / $FLOOR_EPS" 3)
+# the same ratio round by round (a floor run and the replay after it share the host's mood)
+PAIRED=$(paste "$TMP/floor.stat" "$TMP/replay.stat" | awk '{n = NF / 2; print $1 / $(n + 1)}' | median)
 RSS_PER_UNIT=$(calc "$RSS_KIB * 1024 / $EXPOSED" 4)
 out replay_seconds "$REPLAY_S" s
 out replay_events_per_s "$(calc "$REPLAY_EPS" 4)" events/s
@@ -132,6 +134,7 @@ out floor_events_per_s "$(calc "$FLOOR_EPS" 4)" events/s
 out floor_mb_per_s "$(calc "$MB / $FLOOR_S" 4)" MB/s
 out floor_lines_to_reference_decoder "$SLOW" lines
 out replay_over_floor "$RATIO" ratio
+out replay_over_floor_by_round "$(calc "$PAIRED" 3)" ratio
 out exposed_units "$EXPOSED" units
 out replay_peak_rss "$RSS_KIB" KiB
 out replay_rss_per_unit "$RSS_PER_UNIT" bytes/unit
