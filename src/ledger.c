@@ -129,6 +129,7 @@ struct qev {
 #define LOOKAHEAD 16
 #define LOOKAHEAD_RECORD 8
 #define LOOKAHEAD_PENDING 12
+#define LOOKAHEAD_PENDING2 14
 
 struct ledger {
     const struct layout *lay;
@@ -1210,6 +1211,18 @@ static inline __attribute__((always_inline)) void prefetch_pending(const struct 
         __builtin_prefetch(pb(l, q->rec->pend), 1);
 }
 
+/* An assignment may expose its unit, which reads the whole pending list
+ * (recompute): its second block too, named by the head block prefetched
+ * LOOKAHEAD_PENDING2 − LOOKAHEAD_PENDING events before. */
+static inline __attribute__((always_inline)) void prefetch_pending_next(const struct ledger *l, const struct qev *q)
+{
+    if (q->kind == EV_ASSIGN && q->rec && q->rec->key == q->key && q->rec->pend) {
+        uint32_t next = pb(l, q->rec->pend)->next;
+        if (next)
+            __builtin_prefetch(pb(l, next));
+    }
+}
+
 int ledger_apply(struct ledger *l, const struct event *ev)
 {
     if (l->failed)
@@ -1267,6 +1280,8 @@ int ledger_apply(struct ledger *l, const struct event *ev)
         prefetch_record(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_RECORD) & (LOOKAHEAD - 1)]);
     if (l->q_n > LOOKAHEAD_PENDING)
         prefetch_pending(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING) & (LOOKAHEAD - 1)]);
+    if (l->q_n > LOOKAHEAD_PENDING2)
+        prefetch_pending_next(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING2) & (LOOKAHEAD - 1)]);
     if (l->q_n == LOOKAHEAD && apply_oldest(l) < 0)
         return -1;
     return REJ_NONE;
