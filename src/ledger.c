@@ -1168,10 +1168,11 @@ static void sync(const struct ledger *cl)
         apply_oldest(l);
 }
 
-/* The three steps of the lookahead (see the top of this file): an event's
- * index slot is prefetched when it is queued; LOOKAHEAD_RECORD events later,
- * its record; LOOKAHEAD_PENDING events later, the head block of the unit's
- * pending list, which its record names. */
+/* The steps of the lookahead (see the top of this file): an event's index
+ * slot (and id slot) is prefetched when it is queued; LOOKAHEAD_RECORD events
+ * later, its record; LOOKAHEAD_PENDING events later, the head block of the
+ * unit's pending list, which its record names; for an assignment,
+ * LOOKAHEAD_PENDING2 events later, the list's second block. */
 static inline __attribute__((always_inline)) void prefetch_index(const struct ledger *l, uint64_t key)
 {
     if (l->index_cap)
