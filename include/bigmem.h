@@ -37,10 +37,12 @@ struct big_region {
 };
 
 /* Makes the region at least `bytes` long, on huge pages where the kernel
- * allows; bytes beyond the old length read as zero and the contents stay
- * (copied only when the reserve runs out and the region moves). -1 when out
- * of memory or address space; the region is then unchanged. */
-int big_region_grow(struct big_region *g, size_t bytes);
+ * allows; bytes beyond the old length read as zero. The contents stay when
+ * `keep` (copied only when the reserve runs out and the region moves);
+ * without it, a region that moves reads as zero throughout, and one that
+ * does not keeps its old bytes as they were. -1 when out of memory or
+ * address space; the region is then unchanged. */
+int big_region_grow(struct big_region *g, size_t bytes, bool keep);
 void big_region_free(struct big_region *g);
 
 #endif

@@ -47,12 +47,29 @@ void *big_alloc(size_t bytes, bool huge)
     return p;
 }
 
-/* Where a new reserve starts (it is RESERVE_FACTOR times the region's length). */
+/* The size of a new reserve: RESERVE_FACTOR times the region's length, at
+ * least RESERVE_MIN. */
 #define RESERVE_MIN ((size_t)256 << 20)
 #define RESERVE_FACTOR 64
 
-int big_region_grow(struct big_region *g, size_t bytes)
+/* Maps res bytes of address space, 2 MiB aligned, none of it usable yet. */
+static char *reserve(size_t res)
 {
+    char *m = mmap(NULL, res + HUGE_PAGE, PROT_NONE, MAP_PRIVATE | MAP_ANONYMOUS | MAP_NORESERVE, -1, 0);
+    if (m == MAP_FAILED)
+        return NULL;
+    char *p = (char *)round_up((uintptr_t)m, HUGE_PAGE);
+    if (p > m)
+        munmap(m, (size_t)(p - m));
+    if (p + res < m + res + HUGE_PAGE)
+        munmap(p + res, (size_t)(m + res + HUGE_PAGE - (p + res)));
+    return p;
+}
+
+int big_region_grow(struct big_region *g, size_t bytes, bool keep)
+{
+    if (bytes > SIZE_MAX / RESERVE_FACTOR - HUGE_PAGE)
+        return -1; /* the reserve's size would overflow */
     size_t n = round_up(bytes, HUGE_PAGE);
     if (n <= g->used)
         return 0;
@@ -65,16 +82,13 @@ int big_region_grow(struct big_region *g, size_t bytes)
         g->used = n;
         return 0;
     }
-    /* a new reserve, 2 MiB aligned, nothing in it usable until made so */
+    /* a new reserve; where address space is limited (ulimit -v), a smaller one */
     size_t res = n > RESERVE_MIN / RESERVE_FACTOR ? n * RESERVE_FACTOR : RESERVE_MIN;
-    char *m = mmap(NULL, res + HUGE_PAGE, PROT_NONE, MAP_PRIVATE | MAP_ANONYMOUS | MAP_NORESERVE, -1, 0);
-    if (m == MAP_FAILED)
+    char *p;
+    while (!(p = reserve(res)) && res > n)
+        res = res / 4 > n ? res / 4 : n;
+    if (!p)
         return -1;
-    char *p = (char *)round_up((uintptr_t)m, HUGE_PAGE);
-    if (p > m)
-        munmap(m, (size_t)(p - m));
-    if (p + res < m + res + HUGE_PAGE)
-        munmap(p + res, (size_t)(m + res + HUGE_PAGE - (p + res)));
     if (mprotect(p, n, PROT_READ | PROT_WRITE)) {
         munmap(p, res);
         return -1;
@@ -83,7 +97,8 @@ int big_region_grow(struct big_region *g, size_t bytes)
     madvise(p, n, MADV_HUGEPAGE);
 #endif
     if (g->used) {
-        memcpy(p, g->p, g->used);
+        if (keep)
+            memcpy(p, g->p, g->used);
         munmap(g->p, g->reserved);
     }
     g->p = p;

@@ -125,7 +125,8 @@ struct qev {
 
 /* Events queued before they are applied (a power of two), and how many
  * events after its own an event's unit record, then the head block of its
- * pending list, are prefetched (see prefetch_index). */
+ * pending list, then (for an assignment) the list's second block, are
+ * prefetched (see prefetch_index). */
 #define LOOKAHEAD 16
 #define LOOKAHEAD_RECORD 8
 #define LOOKAHEAD_PENDING 12
@@ -315,13 +316,13 @@ static int table_grow(void **tab, size_t old_bytes, struct big_region *g, size_t
         *tab = t;
         return 0;
     }
-    bool was = g->p != NULL;
-    if (big_region_grow(g, new_bytes))
+    char *was = g->p;
+    if (big_region_grow(g, new_bytes, false))
         return -1;
-    if (was)
-        memset(g->p, 0, old_bytes); /* already held: cheap to clear */
-    else
+    if (!was)
         big_free(*tab, old_bytes);
+    else if (g->p == was)
+        memset(g->p, 0, old_bytes); /* already held: cheap to clear */
     *tab = g->p;
     return 0;
 }

@@ -8,10 +8,15 @@ fail=0
 failed=""
 export ABTALLY="$PWD/$BUILD/abtally"
 export CMOCKA_MESSAGE_OUTPUT=stdout
+# a test that hangs fails instead (generous: the sanitizer build is several times slower)
+TIMEOUT=""
+command -v timeout > /dev/null && TIMEOUT="timeout ${ABTALLY_TEST_TIMEOUT:-900}"
 for t in "$BUILD"/tests/test_*; do
     [ -x "$t" ] || continue
-    out=$("$t" 2>&1)
+    out=$($TIMEOUT "$t" 2>&1)
     rc=$?
+    [ "$rc" -eq 124 ] && out="$out
+[  ERROR   ] $(basename "$t"): timed out after ${ABTALLY_TEST_TIMEOUT:-900} s"
     printf '%s\n' "$out" | grep -E '^\[ *(PASSED|FAILED|  FAILED|==========) *\]|^\[  ERROR|^\[  FAILED' | sed "s|^|$(basename "$t"): |"
     n=$(printf '%s\n' "$out" | sed -n 's/^\[  PASSED  \] \([0-9]*\) test.*/\1/p' | awk '{s+=$1} END {print s+0}')
     f=$(printf '%s\n' "$out" | sed -n 's/^\[  FAILED  \] \([0-9]*\) test.*/\1/p' | awk '{s+=$1} END {print s+0}')

@@ -46,7 +46,7 @@ static void test_bigmem__region_grows_in_place_keeping_contents(void **state)
 {
     (void)state;
     struct big_region g = {0};
-    assert_int_equal(big_region_grow(&g, 3 * MiB), 0);
+    assert_int_equal(big_region_grow(&g, 3 * MiB, true), 0);
     assert_non_null(g.p);
     assert_true(g.used >= 3 * MiB);
     assert_int_equal((uintptr_t)g.p % (2 * MiB), 0); /* room for huge pages */
@@ -55,7 +55,7 @@ static void test_bigmem__region_grows_in_place_keeping_contents(void **state)
     mark((unsigned char *)g.p, 0, 3 * MiB);
     size_t old = 3 * MiB;
     for (size_t len = 8 * MiB; len <= 64 * MiB; len *= 2) {
-        assert_int_equal(big_region_grow(&g, len), 0);
+        assert_int_equal(big_region_grow(&g, len, true), 0);
         assert_ptr_equal(g.p, first); /* within the reserve: not moved */
         check((unsigned char *)g.p, 0, old);
         for (size_t o = old; o < len; o += 4096)
@@ -66,7 +66,7 @@ static void test_bigmem__region_grows_in_place_keeping_contents(void **state)
     }
     /* asking for less, or the same, changes nothing */
     size_t used = g.used;
-    assert_int_equal(big_region_grow(&g, MiB), 0);
+    assert_int_equal(big_region_grow(&g, MiB, true), 0);
     assert_int_equal(g.used, used);
     check((unsigned char *)g.p, 0, 64 * MiB);
     big_region_free(&g);
@@ -75,11 +75,56 @@ static void test_bigmem__region_grows_in_place_keeping_contents(void **state)
     big_region_free(&g); /* twice is harmless */
 }
 
+/* Past its reserve (256 MiB for a first length of 2 MiB) a region moves:
+ * with `keep` its contents come along, without it the new one reads zero. */
+static void test_bigmem__region_moves_past_its_reserve(void **state)
+{
+    (void)state;
+    for (int keep = 0; keep < 2; keep++) {
+        struct big_region g = {0};
+        assert_int_equal(big_region_grow(&g, 2 * MiB, keep), 0);
+        mark((unsigned char *)g.p, 0, 2 * MiB);
+        char *first = g.p;
+        size_t reserved = g.reserved;
+        assert_int_equal(big_region_grow(&g, reserved + MiB, keep), 0);
+        assert_ptr_not_equal(g.p, first);
+        assert_true(g.used >= reserved + MiB);
+        assert_true(g.reserved >= g.used);
+        if (keep)
+            check((unsigned char *)g.p, 0, 2 * MiB);
+        else
+            for (size_t o = 0; o < 2 * MiB; o += 4096)
+                assert_int_equal(((unsigned char *)g.p)[o], 0);
+        /* the rest reads as zero (untouched pages: nothing is allocated to read them) */
+        for (size_t o = 2 * MiB; o < g.used; o += 1024 * 1024)
+            assert_int_equal(((unsigned char *)g.p)[o], 0);
+        assert_int_equal(((unsigned char *)g.p)[g.used - 1], 0);
+        big_region_free(&g);
+    }
+}
+
+/* A size whose reserve would overflow is refused, and the region stays as it was. */
+static void test_bigmem__region_refuses_impossible_sizes(void **state)
+{
+    (void)state;
+    struct big_region g = {0};
+    assert_int_equal(big_region_grow(&g, SIZE_MAX - 5, true), -1);
+    assert_null(g.p);
+    assert_int_equal(big_region_grow(&g, 2 * MiB, true), 0);
+    char *p = g.p;
+    assert_int_equal(big_region_grow(&g, SIZE_MAX / 2, true), -1);
+    assert_ptr_equal(g.p, p);
+    assert_int_equal(g.used, 2 * MiB);
+    big_region_free(&g);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_bigmem__blocks_are_zeroed),
         cmocka_unit_test(test_bigmem__region_grows_in_place_keeping_contents),
+        cmocka_unit_test(test_bigmem__region_moves_past_its_reserve),
+        cmocka_unit_test(test_bigmem__region_refuses_impossible_sizes),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
