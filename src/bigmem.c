@@ -18,6 +18,21 @@ static size_t round_up(size_t n, size_t to)
     return (n + to - 1) / to * to;
 }
 
+/* Maps n bytes (a multiple of HUGE_PAGE) at a 2 MiB boundary: one huge page
+ * more is mapped and the ends beyond the aligned part given back. */
+static char *map_aligned(size_t n, int prot, int flags)
+{
+    char *m = mmap(NULL, n + HUGE_PAGE, prot, MAP_PRIVATE | MAP_ANONYMOUS | flags, -1, 0);
+    if (m == MAP_FAILED)
+        return NULL;
+    char *p = (char *)round_up((uintptr_t)m, HUGE_PAGE);
+    if (p > m)
+        munmap(m, (size_t)(p - m));
+    if (p + n < m + n + HUGE_PAGE)
+        munmap(p + n, (size_t)(m + n + HUGE_PAGE - (p + n)));
+    return p;
+}
+
 void *big_alloc(size_t bytes, bool huge)
 {
     if (!bytes)
@@ -29,18 +44,13 @@ void *big_alloc(size_t bytes, bool huge)
         return p;
     }
     size_t n = round_up(bytes, HUGE_PAGE);
-    size_t extra = huge && bytes >= HUGE_MIN ? HUGE_PAGE : 0;
-    char *m = mmap(NULL, n + extra, PROT_READ | PROT_WRITE, MAP_PRIVATE | MAP_ANONYMOUS, -1, 0);
-    if (m == MAP_FAILED)
+    if (!huge || bytes < HUGE_MIN) {
+        void *m = mmap(NULL, n, PROT_READ | PROT_WRITE, MAP_PRIVATE | MAP_ANONYMOUS, -1, 0);
+        return m == MAP_FAILED ? NULL : m;
+    }
+    char *p = map_aligned(n, PROT_READ | PROT_WRITE, 0);
+    if (!p)
         return NULL;
-    if (!extra)
-        return m;
-    /* keep the 2 MiB aligned part of the mapping */
-    char *p = (char *)round_up((uintptr_t)m, HUGE_PAGE);
-    if (p > m)
-        munmap(m, (size_t)(p - m));
-    if (p + n < m + n + extra)
-        munmap(p + n, (size_t)(m + n + extra - (p + n)));
 #ifdef MADV_HUGEPAGE
     madvise(p, n, MADV_HUGEPAGE); /* a hint: without huge pages it still works */
 #endif
@@ -52,18 +62,16 @@ void *big_alloc(size_t bytes, bool huge)
 #define RESERVE_MIN ((size_t)256 << 20)
 #define RESERVE_FACTOR 64
 
-/* Maps res bytes of address space, 2 MiB aligned, none of it usable yet. */
-static char *reserve(size_t res)
+/* Makes [p, p + len) of a reserve readable and writable, on huge pages where
+ * the kernel allows. */
+static int make_usable(char *p, size_t len)
 {
-    char *m = mmap(NULL, res + HUGE_PAGE, PROT_NONE, MAP_PRIVATE | MAP_ANONYMOUS | MAP_NORESERVE, -1, 0);
-    if (m == MAP_FAILED)
-        return NULL;
-    char *p = (char *)round_up((uintptr_t)m, HUGE_PAGE);
-    if (p > m)
-        munmap(m, (size_t)(p - m));
-    if (p + res < m + res + HUGE_PAGE)
-        munmap(p + res, (size_t)(m + res + HUGE_PAGE - (p + res)));
-    return p;
+    if (mprotect(p, len, PROT_READ | PROT_WRITE))
+        return -1;
+#ifdef MADV_HUGEPAGE
+    madvise(p, len, MADV_HUGEPAGE);
+#endif
+    return 0;
 }
 
 int big_region_grow(struct big_region *g, size_t bytes, bool keep)
@@ -74,28 +82,22 @@ int big_region_grow(struct big_region *g, size_t bytes, bool keep)
     if (n <= g->used)
         return 0;
     if (n <= g->reserved) {
-        if (mprotect(g->p + g->used, n - g->used, PROT_READ | PROT_WRITE))
+        if (make_usable(g->p + g->used, n - g->used))
             return -1;
-#ifdef MADV_HUGEPAGE
-        madvise(g->p + g->used, n - g->used, MADV_HUGEPAGE);
-#endif
         g->used = n;
         return 0;
     }
     /* a new reserve; where address space is limited (ulimit -v), a smaller one */
     size_t res = n > RESERVE_MIN / RESERVE_FACTOR ? n * RESERVE_FACTOR : RESERVE_MIN;
     char *p;
-    while (!(p = reserve(res)) && res > n)
+    while (!(p = map_aligned(res, PROT_NONE, MAP_NORESERVE)) && res > n) /* none of it usable yet */
         res = res / 4 > n ? res / 4 : n;
     if (!p)
         return -1;
-    if (mprotect(p, n, PROT_READ | PROT_WRITE)) {
+    if (make_usable(p, n)) {
         munmap(p, res);
         return -1;
     }
-#ifdef MADV_HUGEPAGE
-    madvise(p, n, MADV_HUGEPAGE);
-#endif
     if (g->used) {
         if (keep)
             memcpy(p, g->p, g->used);

@@ -224,6 +224,39 @@ static void feed_to(struct fx *f, struct ledger *l, const char *line)
     assert_int_equal(ledger_apply(l, &ev), 0);
 }
 
+/* A copy of f's ledger, saved and loaded (a snapshot round trip). */
+static struct ledger *saved_copy(struct fx *f)
+{
+    struct byte_buf mb = {0};
+    assert_int_equal(ledger_save(f->l, byte_buf_write, &mb), 0);
+    struct err e;
+    struct ledger *copy = ledger_load(&f->lay, mb.p, mb.n, &e);
+    free(mb.p);
+    assert_non_null(copy);
+    return copy;
+}
+
+/* Numbered events for l at time t (µs): an assignment of unit <unit><i> to
+ * control (i even) or treatment, with id <id><i>; a spend of 2 by unit w<i>,
+ * with id o<i>. */
+static void assign_n(struct fx *f, struct ledger *l, const char *unit, const char *id, int i, int64_t t)
+{
+    char b[512], ts[40];
+    time_format(t, ts, sizeof ts);
+    snprintf(b, sizeof b, "{\"kind\":\"assign\",\"time\":\"%s\",\"unit\":\"%s%d\",\"exp\":\"bakery-banner\","
+             "\"arm\":\"%s\",\"id\":\"%s%d\"}", ts, unit, i, i % 2 ? "treatment" : "control", id, i);
+    feed_to(f, l, b);
+}
+
+static void spend_n(struct fx *f, struct ledger *l, int i, int64_t t)
+{
+    char b[512], ts[40];
+    time_format(t, ts, sizeof ts);
+    snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"w%d\",\"metric\":\"spend\","
+             "\"value\":2,\"id\":\"o%d\"}", ts, i, i);
+    feed_to(f, l, b);
+}
+
 /* Rule: the covariate is the pre-period sum, however many outcomes wait for
  * the exposure and whatever happens to them meanwhile. Seven pre-period
  * outcomes of u1 (more than one pending block) wait; a sweep drops the oldest
@@ -251,12 +284,7 @@ static void test_ledger__long_pending_lists_survive_sweeps_and_snapshots(void **
     /* another unit's events move the watermark past 11-09: daily sweeps run */
     feed_to(f, f->l, "{\"kind\":\"outcome\",\"time\":\"2026-11-09T12:00:00Z\",\"unit\":\"u9\",\"metric\":\"visit\",\"value\":1}");
     feed_to(f, f->l, "{\"kind\":\"outcome\",\"time\":\"2026-11-10T09:40:00Z\",\"unit\":\"u9\",\"metric\":\"visit\",\"value\":1}");
-    struct byte_buf mb = {0};
-    assert_int_equal(ledger_save(f->l, byte_buf_write, &mb), 0);
-    struct err e;
-    struct ledger *copy = ledger_load(&f->lay, mb.p, mb.n, &e);
-    free(mb.p);
-    assert_non_null(copy);
+    struct ledger *copy = saved_copy(f);
     struct ledger *both[2] = {f->l, copy};
     for (int k = 0; k < 2; k++) {
         feed_to(f, both[k], "{\"kind\":\"assign\",\"time\":\"2026-11-10T10:00:00Z\",\"unit\":\"u1\",\"exp\":\"bakery-banner\",\"arm\":\"treatment\"}");
@@ -304,48 +332,24 @@ static void test_ledger__duplicates_by_id(void **state)
 static void test_ledger__large_tables_keep_every_entry(void **state)
 {
     struct fx *f = *state;
-    enum { N = 400000 };
-    char b[512], t[40];
+    enum { N = 400000, N2 = 300000 };
     int64_t t0;
     assert_int_equal(time_parse_rfc3339("2026-11-03T00:00:00Z", 20, &t0), 0);
-    for (int i = 0; i < N; i++) {
-        time_format(t0 + (int64_t)i * 100000, t, sizeof t); /* 0.1 s apart: 11 h in all */
-        snprintf(b, sizeof b, "{\"kind\":\"assign\",\"time\":\"%s\",\"unit\":\"w%d\",\"exp\":\"bakery-banner\","
-                 "\"arm\":\"%s\",\"id\":\"a%d\"}", t, i, i % 2 ? "treatment" : "control", i);
-        feed_to(f, f->l, b);
-        snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"w%d\",\"metric\":\"spend\","
-                 "\"value\":2,\"id\":\"o%d\"}", t, i, i);
-        feed_to(f, f->l, b);
+    for (int i = 0; i < N; i++) { /* 0.1 s apart: 11 h in all */
+        assign_n(f, f->l, "w", "a", i, t0 + (int64_t)i * 100000);
+        spend_n(f, f->l, i, t0 + (int64_t)i * 100000);
     }
-    for (int i = 0; i < N; i += 4) {
-        time_format(t0 + (int64_t)i * 100000, t, sizeof t);
-        snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"w%d\",\"metric\":\"spend\","
-                 "\"value\":2,\"id\":\"o%d\"}", t, i, i);
-        feed_to(f, f->l, b);
-    }
+    for (int i = 0; i < N; i += 4)
+        spend_n(f, f->l, i, t0 + (int64_t)i * 100000);
     assert_int_equal(ledger_counters(f->l)->duplicates, N / 4);
     assert_int_equal(ledger_n_records(f->l), N);
-    struct byte_buf mb = {0};
-    assert_int_equal(ledger_save(f->l, byte_buf_write, &mb), 0);
-    struct err e;
-    struct ledger *copy = ledger_load(&f->lay, mb.p, mb.n, &e);
-    free(mb.p);
-    assert_non_null(copy);
+    struct ledger *copy = saved_copy(f);
     struct ledger *both[2] = {f->l, copy};
-    enum { N2 = 300000 };
     for (int k = 0; k < 2; k++) {
-        for (int i = 0; i < N2; i++) {
-            time_format(t0 + (int64_t)N * 100000 + (int64_t)i * 10000, t, sizeof t);
-            snprintf(b, sizeof b, "{\"kind\":\"assign\",\"time\":\"%s\",\"unit\":\"x%d\",\"exp\":\"bakery-banner\","
-                     "\"arm\":\"%s\",\"id\":\"x%d\"}", t, i, i % 2 ? "treatment" : "control", i);
-            feed_to(f, both[k], b);
-        }
-        for (int i = 0; i < N; i += 5) {
-            time_format(t0 + (int64_t)i * 100000, t, sizeof t);
-            snprintf(b, sizeof b, "{\"kind\":\"assign\",\"time\":\"%s\",\"unit\":\"w%d\",\"exp\":\"bakery-banner\","
-                     "\"arm\":\"%s\",\"id\":\"a%d\"}", t, i, i % 2 ? "treatment" : "control", i);
-            feed_to(f, both[k], b);
-        }
+        for (int i = 0; i < N2; i++)
+            assign_n(f, both[k], "x", "x", i, t0 + (int64_t)N * 100000 + (int64_t)i * 10000);
+        for (int i = 0; i < N; i += 5)
+            assign_n(f, both[k], "w", "a", i, t0 + (int64_t)i * 100000);
         ledger_finish(both[k]);
         assert_int_equal(ledger_counters(both[k])->duplicates, N / 4 + N / 5);
         assert_int_equal(ledger_units(both[k], CTL), N / 2 + N2 / 2);
