@@ -16,12 +16,21 @@
  *                 ledger.h); while a unit is not exposed, its first value
  *                 slot holds its pending floor (pend_floor), so sweeps skip
  *                 lists with nothing to drop;
- *   event ids     16-byte slots (hash, time), linear probing, load ≤ 0.5.
- * The index and the id table, once 4 MiB, double in place (a bigmem region:
- * only the new half is fresh memory).
+ *   event ids     a ring of 24-byte entries (hash, time, link) in arrival
+ *                 order, each unit's linked from its record (8 bytes after
+ *                 it: the newest entry's position and a 32-bit filter of
+ *                 the unit's ids, so a new id is known new from the record
+ *                 alone, with no memory read of its own; see "ids"); ids of
+ *                 events with no record, and ids a sweep or the ring's
+ *                 growth takes out of the ring, sit in a table of 16-byte
+ *                 slots (hash, time), linear probing, load ≤ 0.5, read only
+ *                 while it holds ids within the horizon.
+ * The index, the id table and the ring, once 4 MiB, double in place (a
+ * bigmem region: only the new half is fresh memory).
  * Nothing is allocated per event in steady state: chunks, the index, the
- * pending blocks and the id table grow geometrically and are reused (the id
- * table drops expired ids in place, and reuses their slots). Sweeps settle
+ * pending blocks, the ring and the id table grow geometrically and are
+ * reused (the ring's entries once expired; the id table drops expired ids in
+ * place, and reuses their slots). Sweeps settle
  * units in batches whose pending lists are walked side by side (settle).
  * Tables and chunks of 4 MiB and more are mapped on huge pages where the
  * kernel allows (bigmem.h).
@@ -97,6 +106,21 @@ struct idslot {
     int64_t t;  /* event time */
 };
 
+/* An id in the ring (see "ids"). */
+struct ident {
+    uint64_t h;    /* id hash (never 0; 0: a gap, not an id) */
+    int64_t t;     /* event time */
+    uint32_t prev; /* position (low 32 bits) of the unit's previous id, 0: none */
+    uint32_t spare;
+};
+
+/* Beside each record (at rec_size, in the record's slot): the unit's newest
+ * id in the ring and the filter of its ids there (see "ids"). */
+struct idlink {
+    uint32_t head; /* position (low 32 bits), 0: none */
+    uint32_t filt; /* id_bits of every id of the unit in the ring, and maybe more */
+};
+
 /* The segment name of an assignment's attrs: "key=value" pairs sorted by key,
  * joined by 0x1f (see ledger.h); longer names go to SEG_OTHER. */
 #define SEG_NAME_MAX 512
@@ -138,7 +162,8 @@ struct ledger {
     /* unit records */
     char **chunks;
     size_t n_chunks;
-    size_t stride; /* bytes between records: rec_size, or a whole line when it fits one */
+    size_t slot;   /* bytes of a record in memory: rec_size, then its struct idlink */
+    size_t stride; /* bytes between records: slot, or a whole line when it fits one */
     uint32_t n_recs;
     uint64_t *index; /* IX_ENTRY(key, record number + 1); 0 = empty */
     size_t index_cap;
@@ -149,9 +174,15 @@ struct ledger {
     uint32_t pb_top;  /* blocks below it have been used (bump allocation) */
     uint32_t pb_free; /* free list of released blocks, linked by next */
     uint32_t pend_used, pend_after_sweep; /* entries */
-    /* event ids */
+    /* event ids: the ring (positions [ir_tail, ir_next), entry p at p mod ir_cap) */
+    struct ident *ir;
+    size_t ir_cap;
+    uint64_t ir_tail, ir_next;
+    struct big_region ir_region; /* holds the ring once it is large */
+    /* event ids outside the ring */
     struct idslot *ids;
     size_t ids_cap, ids_n;
+    int64_t ids_max_t;            /* latest time put in the table, INT64_MIN before any */
     struct big_region ids_region; /* holds the table once it is large */
     /* multi-arm units: key → mask of arms named */
     struct multi {
@@ -368,7 +399,7 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
         l->n_chunks++;
     }
     struct urec *r = rec_at(l, i);
-    memset(r, 0, l->lay->rec_size);
+    memset(r, 0, l->slot);
     r->key = key;
     r->expo = NO_TIME;
     r->arm = ARM_NONE;
@@ -708,6 +739,39 @@ static void recompute(struct ledger *l, struct urec *r)
 
 /* ---------------------------------------------------------------- ids */
 
+/* Ids are scoped by unit (their hash is keyed by the unit's), so a duplicate
+ * is always an id of the same unit, and every event reads its unit's record
+ * anyway. So the ids of a unit with a record are kept in a ring, in arrival
+ * order, each entry linked to the unit's previous one, the newest named by
+ * the record's idlink; beside it, a 32-bit filter of two bits per id
+ * (id_bits) over the unit's ids in the ring (bits of ids since expired stay
+ * until the chain is next walked, or has left the ring). An id whose bits
+ * are not all in the filter is new: it is appended to the ring (a
+ * sequential write) with no other memory read, which is nearly every id.
+ * Otherwise the unit's chain is walked (chain_seen), and the filter made
+ * exact again. A global table probed at random, one cache and TLB miss per
+ * event, cost about a quarter of replay (bench/README.md).
+ *
+ * Positions count up from 1 for the ledger's life (the ring holds
+ * [ir_tail, ir_next)); links keep their low 32 bits, and a link resolves
+ * only to a position inside the ring (ring_age), older than the entry that
+ * names it, so a chain ends where the ring does. The tail passes entries
+ * once expired. When the ring is full of ids still within the horizon it
+ * doubles; when only a few stragglers hold its tail (an id far ahead of the
+ * others in time), they move to the table below instead, so that one odd id
+ * cannot make the ring grow without bound.
+ *
+ * The table (16-byte slots, linear probing) holds the ids that have no ring
+ * chain to be found by: those of events with no record, those a sweep takes
+ * out of the ring with the record that named them, the ring's stragglers,
+ * and ids loaded from a snapshot or merged from another ledger (both save
+ * ids as (hash, time) only). It is probed only while it may hold an id
+ * within the horizon (ids_max_t). The table and the chains never both hold
+ * an id within the horizon: an id is added to one only when neither knew
+ * it. */
+
+#define IR_MIN 1024 /* the ring's first capacity (entries) */
+
 /* The time before which an id is forgotten: ids older than the horizon,
  * counted back from the latest event time, no longer make duplicates. */
 static int64_t ids_cutoff(const struct ledger *l)
@@ -820,7 +884,229 @@ static int id_seen(struct ledger *l, uint64_t h, int64_t t)
     }
     reuse->h = h;
     reuse->t = t;
+    if (t > l->ids_max_t)
+        l->ids_max_t = t;
     return 0;
+}
+
+/* True when the table may hold an id within the horizon. */
+static bool table_live(const struct ledger *l)
+{
+    return l->ids_cap && l->ids_max_t >= ids_cutoff(l);
+}
+
+/* True when the table holds h within the horizon (it changes nothing). */
+static bool table_seen(const struct ledger *l, uint64_t h)
+{
+    if (!table_live(l))
+        return false;
+    int64_t cutoff = ids_cutoff(l);
+    size_t mask = l->ids_cap - 1;
+    for (size_t s = h & mask; l->ids[s].h; s = (s + 1) & mask)
+        if (l->ids[s].h == h && l->ids[s].t >= cutoff)
+            return true;
+    return false;
+}
+
+/* The two filter bits of an id hash (bits the table's probing does not use
+ * first). */
+static uint32_t id_bits(uint64_t h)
+{
+    return (UINT32_C(1) << ((h >> 40) & 31)) | (UINT32_C(1) << ((h >> 51) & 31));
+}
+
+static struct idlink *idl(const struct ledger *l, const struct urec *r)
+{
+    return (struct idlink *)((char *)r + l->lay->rec_size);
+}
+
+/* How many positions back from ir_next the link p names (1: the newest
+ * entry); 0 when it names no entry in the ring. */
+static uint64_t ring_age(const struct ledger *l, uint32_t p)
+{
+    uint64_t age = (uint32_t)((uint32_t)l->ir_next - p);
+    return p && age && age <= l->ir_next - l->ir_tail ? age : 0;
+}
+
+static struct ident *ring_at(const struct ledger *l, uint64_t pos)
+{
+    return &l->ir[pos & (l->ir_cap - 1)];
+}
+
+/* Calls fn on each id of r's chain within the horizon, newest first, until
+ * it returns true; returns what it last returned. */
+static bool chain_each(struct ledger *l, struct urec *r, bool (*fn)(struct ledger *, struct ident *, void *),
+                       void *ctx)
+{
+    int64_t cutoff = ids_cutoff(l);
+    uint64_t last = 0;
+    for (uint32_t p = idl(l, r)->head;;) {
+        uint64_t age = ring_age(l, p);
+        if (age <= last) /* outside the ring, or not older: the chain ends */
+            return false;
+        last = age;
+        struct ident *e = ring_at(l, l->ir_next - age);
+        if (e->t >= cutoff && fn(l, e, ctx))
+            return true;
+        p = e->prev;
+    }
+}
+
+static bool match_or_filter(struct ledger *l, struct ident *e, void *ctx)
+{
+    (void)l;
+    uint64_t *hf = ctx; /* hf[0]: the id sought; hf[1]: the filter rebuilt */
+    if (e->h == hf[0])
+        return true;
+    hf[1] |= id_bits(e->h);
+    return false;
+}
+
+/* True when r's chain holds h within the horizon; reads the chain only when
+ * the filter says it may, and then makes the filter exact. */
+static bool chain_seen(struct ledger *l, struct urec *r, uint64_t h)
+{
+    struct idlink *k = idl(l, r);
+    uint32_t b = id_bits(h);
+    if ((k->filt & b) != b || !ring_age(l, k->head))
+        return false;
+    uint64_t hf[2] = {h, 0};
+    if (chain_each(l, r, match_or_filter, hf))
+        return true;
+    k->filt = (uint32_t)hf[1];
+    return false;
+}
+
+static bool to_table(struct ledger *l, struct ident *e, void *ctx)
+{
+    int *rc = ctx;
+    if (id_seen(l, e->h, e->t) < 0)
+        *rc = -1;
+    e->h = 0; /* now a gap: the id is in one place only */
+    return false;
+}
+
+/* Moves the ids of r's chain within the horizon to the table (r is about to
+ * go); -1 when out of memory. */
+static int chain_to_table(struct ledger *l, struct urec *r)
+{
+    int rc = 0;
+    chain_each(l, r, to_table, &rc);
+    idl(l, r)->head = 0;
+    return rc;
+}
+
+/* Doubles the ring, keeping each entry at its position. */
+static int ring_grow(struct ledger *l)
+{
+    size_t ocap = l->ir_cap, cap = ocap ? ocap * 2 : IR_MIN, bytes = cap * sizeof *l->ir;
+    struct ident *old = l->ir, *nw;
+    bool in_place = l->ir_region.p != NULL;
+    if (bytes < TABLE_REGION_MIN) {
+        nw = big_alloc(bytes, true);
+    } else {
+        if (big_region_grow(&l->ir_region, bytes, in_place))
+            return -1;
+        nw = (struct ident *)l->ir_region.p;
+    }
+    if (!nw)
+        return -1;
+    const struct ident *src = in_place ? nw : old;
+    for (uint64_t p = l->ir_tail; p < l->ir_next; p++)
+        if (!in_place || (p & (ocap - 1)) != (p & (cap - 1)))
+            nw[p & (cap - 1)] = src[p & (ocap - 1)];
+    if (!in_place && old)
+        big_free(old, ocap * sizeof *old);
+    l->ir = nw;
+    l->ir_cap = cap;
+    return 0;
+}
+
+/* Makes room for one entry at ir_next; -1 when out of memory. */
+static int ring_room(struct ledger *l)
+{
+    int64_t cutoff = ids_cutoff(l);
+    while (l->ir_tail < l->ir_next && ring_at(l, l->ir_tail)->t < cutoff)
+        l->ir_tail++;
+    if (l->ir_next - l->ir_tail < l->ir_cap)
+        return 0;
+    /* full of ids within the horizon: grow, unless only a few of the oldest
+     * are (stragglers), which then move to the table */
+    uint64_t span = l->ir_cap / 8, live = 0;
+    for (uint64_t p = l->ir_tail; p < l->ir_tail + span; p++)
+        live += ring_at(l, p)->t >= cutoff;
+    if (!l->ir_cap || live * 2 > span)
+        return ring_grow(l);
+    for (uint64_t p = l->ir_tail; p < l->ir_tail + span; p++) {
+        const struct ident *e = ring_at(l, p);
+        if (e->h && e->t >= cutoff && id_seen(l, e->h, e->t) < 0)
+            return -1; /* (then behind the tail: out of the ring) */
+    }
+    l->ir_tail += span;
+    return 0;
+}
+
+/* Appends id h (time t) to r's chain; -1 when out of memory. */
+static int chain_add(struct ledger *l, struct urec *r, uint64_t h, int64_t t)
+{
+    if (l->ir_next - l->ir_tail >= l->ir_cap && ring_room(l))
+        return -1;
+    if (!(uint32_t)l->ir_next) { /* a link of 0 means none: leave a gap */
+        *ring_at(l, l->ir_next++) = (struct ident){0, INT64_MIN, 0, 0};
+        if (l->ir_next - l->ir_tail >= l->ir_cap && ring_room(l))
+            return -1;
+    }
+    struct idlink *k = idl(l, r);
+    /* the lines the next appends write, and the tail reads, ahead of them:
+     * a store that misses the cache holds up every later load that has to
+     * wait for the stores before it */
+    __builtin_prefetch(ring_at(l, l->ir_next + 8), 1);
+    __builtin_prefetch(ring_at(l, l->ir_tail + 8));
+    if (!ring_age(l, k->head)) /* every id of the chain has left the ring */
+        k->filt = 0;
+    *ring_at(l, l->ir_next) = (struct ident){h, t, k->head, 0};
+    k->head = (uint32_t)l->ir_next++;
+    k->filt |= id_bits(h);
+    /* the tail passes up to two expired entries an append, so the ring
+     * stays about as long as the horizon's ids */
+    int64_t cutoff = ids_cutoff(l);
+    for (int i = 0; i < 2 && l->ir_tail < l->ir_next && ring_at(l, l->ir_tail)->t < cutoff; i++)
+        l->ir_tail++;
+    return 0;
+}
+
+/* Calls fn(ctx, h, t) on every id within the horizon (table first, then
+ * the ring in arrival order); stops at the first nonzero return, and
+ * returns it. */
+static int each_id(const struct ledger *l, int (*fn)(void *ctx, uint64_t h, int64_t t), void *ctx)
+{
+    int64_t cutoff = ids_cutoff(l);
+    int rc = 0;
+    for (size_t i = 0; i < l->ids_cap && !rc; i++)
+        if (l->ids[i].h && l->ids[i].t >= cutoff)
+            rc = fn(ctx, l->ids[i].h, l->ids[i].t);
+    for (uint64_t p = l->ir_tail; p < l->ir_next && !rc; p++) {
+        const struct ident *e = ring_at(l, p);
+        if (e->h && e->t >= cutoff)
+            rc = fn(ctx, e->h, e->t);
+    }
+    return rc;
+}
+
+/* True when a queued event's id was seen within the horizon (it changes no
+ * id: see id_keep). */
+static bool id_known(struct ledger *l, const struct qev *q, struct urec *r)
+{
+    uint64_t h = q->idh ? q->idh : 1;
+    return table_seen(l, h) || (r && chain_seen(l, r, h));
+}
+
+/* Remembers a queued event's id, once the event is applied: in its unit's
+ * chain, or in the table when the unit has no record; -1 when out of memory. */
+static int id_keep(struct ledger *l, const struct qev *q, struct urec *r)
+{
+    uint64_t h = q->idh ? q->idh : 1;
+    return r ? chain_add(l, r, h, q->t) : id_seen(l, h, q->t);
 }
 
 /* ---------------------------------------------------------------- multi-arm */
@@ -967,11 +1253,13 @@ static void sweep(struct ledger *l)
                 r->flags |= F_DEAD;
         }
         if (r->flags & F_DEAD) {
+            if (chain_to_table(l, r) < 0)
+                l->failed = true;
             moved = true;
             continue;
         }
         if (kept != i)
-            memcpy(rec_at(l, kept), r, l->lay->rec_size);
+            memcpy(rec_at(l, kept), r, l->slot);
         /* records only move down, to slots already passed: the copy stays put */
         if (due && (batch[nb++] = rec_at(l, kept), nb == SETTLE_BATCH)) {
             settle(l, batch, nb);
@@ -1122,12 +1410,9 @@ static int apply_outcome_event(struct ledger *l, const struct qev *q)
 static int apply_queued(struct ledger *l, const struct qev *q)
 {
     if (q->has_id) {
-        int seen = id_seen(l, q->idh, q->t);
-        if (seen < 0)
-            return -1;
-        if (seen) {
+        struct urec *r = unit_of(l, q, false);
+        if (id_known(l, q, r)) {
             l->cnt.duplicates++;
-            struct urec *r = unit_of(l, q, false);
             if (r && (r->flags & F_FINAL)) {
                 if (in_tally(r))
                     l->cnt.dup_by_arm[r->arm]++;
@@ -1143,7 +1428,10 @@ static int apply_queued(struct ledger *l, const struct qev *q)
         l->max_time = q->t;
         maybe_sweep(l);
     }
-    return q->kind == EV_ASSIGN ? apply_assign(l, q) : apply_outcome_event(l, q);
+    int rc = q->kind == EV_ASSIGN ? apply_assign(l, q) : apply_outcome_event(l, q);
+    if (rc >= 0 && q->has_id && id_keep(l, q, unit_of(l, q, false)) < 0)
+        return -1;
+    return rc;
 }
 
 /* Applies the oldest queued event. */
@@ -1197,10 +1485,10 @@ static void prefetch_record(const struct ledger *l, struct qev *q)
 {
     const char *r = (const char *)(q->rec = (struct urec *)index_guess(l, q->key));
     if (r) {
-        for (size_t o = 0; o < l->lay->rec_size; o += 64)
+        for (size_t o = 0; o < l->slot; o += 64)
             __builtin_prefetch(r + o, 1);
         if (l->stride > 64) /* not on line boundaries: its end may be on one line more */
-            __builtin_prefetch(r + l->lay->rec_size - 1, 1);
+            __builtin_prefetch(r + l->slot - 1, 1);
     }
 }
 
@@ -1211,6 +1499,19 @@ static inline __attribute__((always_inline)) void prefetch_pending(const struct 
 {
     if (q->rec && q->rec->pend)
         __builtin_prefetch(pb(l, q->rec->pend), 1);
+}
+
+/* The newest id of the unit's chain, when its filter says the event's id
+ * may be there (see chain_seen). */
+static inline __attribute__((always_inline)) void prefetch_chain(const struct ledger *l, const struct qev *q)
+{
+    if (q->has_id && q->rec) {
+        const struct idlink *k = idl(l, q->rec);
+        uint32_t b = id_bits(q->idh ? q->idh : 1);
+        uint64_t age;
+        if ((k->filt & b) == b && (age = ring_age(l, k->head)))
+            __builtin_prefetch(ring_at(l, l->ir_next - age));
+    }
 }
 
 /* An assignment may expose its unit, which reads the whole pending list
@@ -1256,7 +1557,7 @@ int ledger_apply(struct ledger *l, const struct event *ev)
          * or shard, so de-duplication is exact however the units are split */
         struct hash_key k = {key, key ^ HASH_KEY_DEFAULT.k1};
         q->idh = siphash24(&k, ev->id.p, ev->id.n);
-        if (l->ids_cap)
+        if (table_live(l))
             __builtin_prefetch(&l->ids[(q->idh ? q->idh : 1) & (l->ids_cap - 1)]);
     }
     if (ev->kind == EV_ASSIGN) {
@@ -1280,8 +1581,11 @@ int ledger_apply(struct ledger *l, const struct event *ev)
     l->q_n++;
     if (l->q_n > LOOKAHEAD_RECORD)
         prefetch_record(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_RECORD) & (LOOKAHEAD - 1)]);
-    if (l->q_n > LOOKAHEAD_PENDING)
-        prefetch_pending(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING) & (LOOKAHEAD - 1)]);
+    if (l->q_n > LOOKAHEAD_PENDING) {
+        struct qev *p = &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING) & (LOOKAHEAD - 1)];
+        prefetch_pending(l, p);
+        prefetch_chain(l, p);
+    }
     if (l->q_n > LOOKAHEAD_PENDING2)
         prefetch_pending_next(l, &l->ring[(l->q_head + l->q_n - 1 - LOOKAHEAD_PENDING2) & (LOOKAHEAD - 1)]);
     if (l->q_n == LOOKAHEAD && apply_oldest(l) < 0)
@@ -1311,9 +1615,12 @@ struct ledger *ledger_new(const struct layout *lay)
         return NULL;
     l->lay = lay;
     l->cfg = lay->cfg;
-    l->stride = lay->rec_size <= 64 ? 64 : lay->rec_size;
+    l->slot = lay->rec_size + sizeof(struct idlink);
+    l->stride = l->slot <= 64 ? 64 : l->slot;
     l->max_time = INT64_MIN;
     l->last_sweep = INT64_MIN;
+    l->ir_tail = l->ir_next = 1;
+    l->ids_max_t = INT64_MIN;
     size_t nm = lay->cfg->n_metrics ? (size_t)lay->cfg->n_metrics : 1;
     l->mom = calloc(nm * CONFIG_MAX_ARMS, sizeof *l->mom);
     l->ring = malloc(LOOKAHEAD * sizeof *l->ring);
@@ -1345,6 +1652,10 @@ void ledger_free(struct ledger *l)
         big_free(l->index, l->index_cap * sizeof *l->index);
     for (int k = 0; k < l->n_pchunks; k++)
         big_free(l->pchunk[k], (pb_first(k + 1) - pb_first(k)) * sizeof(struct pblk));
+    if (l->ir_region.p)
+        big_region_free(&l->ir_region);
+    else
+        big_free(l->ir, l->ir_cap * sizeof *l->ir);
     if (l->ids_region.p)
         big_region_free(&l->ids_region);
     else
@@ -1409,7 +1720,7 @@ size_t ledger_memory(const struct ledger *l)
 {
     sync(l);
     return l->n_chunks * CHUNK_RECS * l->stride + l->index_cap * sizeof *l->index +
-           pb_bytes(l) + l->ids_cap * sizeof *l->ids +
+           pb_bytes(l) + l->ids_cap * sizeof *l->ids + l->ir_cap * sizeof *l->ir +
            l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days +
            LOOKAHEAD * sizeof *l->ring;
 }
@@ -1420,7 +1731,7 @@ void ledger_memory_parts(const struct ledger *l, struct ledger_mem *m)
     m->records = l->n_chunks * CHUNK_RECS * l->stride;
     m->index = l->index_cap * sizeof *l->index;
     m->pending = pb_bytes(l);
-    m->ids = l->ids_cap * sizeof *l->ids;
+    m->ids = l->ids_cap * sizeof *l->ids + l->ir_cap * sizeof *l->ir;
     m->other = l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days + LOOKAHEAD * sizeof *l->ring;
     m->n_records = l->n_recs;
 }
@@ -1455,6 +1766,20 @@ static void put(struct wr *o, const void *p, size_t n)
 static void put_u64(struct wr *o, uint64_t v)
 {
     put(o, &v, sizeof v);
+}
+
+static int count_id(void *ctx, uint64_t h, int64_t t)
+{
+    (void)h, (void)t;
+    ++*(uint64_t *)ctx;
+    return 0;
+}
+
+static int put_id(void *ctx, uint64_t h, int64_t t)
+{
+    struct idslot s = {h, t};
+    put(ctx, &s, sizeof s);
+    return ((struct wr *)ctx)->rc;
 }
 
 /* Writes a unit record; the values of a unit not yet exposed are zero (the
@@ -1511,10 +1836,11 @@ int ledger_save(const struct ledger *l, ledger_write_fn w, void *ctx)
             }
         }
     }
-    put_u64(&o, l->ids_n);
-    for (size_t i = 0; i < l->ids_cap; i++)
-        if (l->ids[i].h)
-            put(&o, &l->ids[i], sizeof l->ids[i]);
+    /* ids within the horizon, as (hash, time) */
+    uint64_t n_ids = 0;
+    each_id(l, count_id, &n_ids);
+    put_u64(&o, n_ids);
+    each_id(l, put_id, &o);
     put_u64(&o, l->multi_n);
     for (size_t i = 0; i < l->multi_cap; i++)
         if (l->multi[i].mask)
@@ -1676,6 +2002,8 @@ struct ledger *ledger_load(const struct layout *lay, const void *buf, size_t len
             q = (q + 1) & (cap - 1);
         l->ids[q] = s;
         l->ids_n++;
+        if (s.t > l->ids_max_t)
+            l->ids_max_t = s.t;
     }
     uint64_t nm = take_u64(&r);
     if (r.bad || nm > r.left / sizeof(struct multi))
@@ -1701,6 +2029,11 @@ void counters_add(struct counters *a, const struct counters *b)
     const uint64_t *pb = (const uint64_t *)b;
     for (size_t i = 0; i < sizeof *a / sizeof(uint64_t); i++)
         pa[i] += pb[i];
+}
+
+static int absorb_id(void *ctx, uint64_t h, int64_t t)
+{
+    return id_seen(ctx, h, t) < 0;
 }
 
 int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
@@ -1755,9 +2088,8 @@ int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
         for (int a = 0; a < cfg->n_arms; a++)
             dst->segs[k - 1].units[a] += src->segs[i].units[a];
     }
-    for (size_t i = 0; i < src->ids_cap; i++)
-        if (src->ids[i].h && id_seen(dst, src->ids[i].h, src->ids[i].t) < 0)
-            return err_set(e, AB_EINPUT, "out of memory");
+    if (each_id(src, absorb_id, dst))
+        return err_set(e, AB_EINPUT, "out of memory");
     for (size_t i = 0; i < src->multi_cap; i++)
         if (src->multi[i].mask) {
             struct multi *m = multi_get(dst, src->multi[i].key);
