@@ -4,9 +4,9 @@
  * Small blocks come from malloc, aligned to a cache line. Blocks of 256 KiB
  * and more are mapped from the kernel (zero pages, nothing touched until
  * used); from 4 MiB, when `huge`, they are aligned to 2 MiB and marked for
- * transparent huge pages where the kernel offers them: the unit index, the
- * unit records and the event-id table are read at random, and with 4 KiB
- * pages nearly every such read would also miss the TLB. A huge page is
+ * transparent huge pages where the kernel offers them: the unit index and
+ * the unit records are read at random, and with 4 KiB pages nearly every
+ * such read would also miss the TLB. A huge page is
  * backed whole at its first touch, so a caller asks for them only once its
  * structure is large anyway (a watch keeps one ledger per partition, most of
  * them small).
@@ -18,7 +18,7 @@
  * and made usable as it grows, so a table that doubles keeps the pages it has
  * touched. On the virtual machines measured, a fresh huge page costs 3–4.5 ns
  * per byte at its first touch, about thirty times a memset of memory already
- * held (bench/README.md); the unit index and the event-id table double
+ * held (bench/README.md); the unit index and the event-id ring double
  * several times.
  */
 #ifndef ABTALLY_BIGMEM_H

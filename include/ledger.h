@@ -136,7 +136,7 @@ struct ledger_mem {
     size_t records;  /* unit records (chunks allocated) */
     size_t index;    /* open-addressing index of the records */
     size_t pending;  /* pending-outcome arena */
-    size_t ids;      /* event-id table */
+    size_t ids;      /* event ids: the ring and the table */
     size_t other;    /* multi-arm table, day rows, lookahead ring */
     size_t n_records;/* unit records in use */
 };
