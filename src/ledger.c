@@ -4,9 +4,11 @@
  * Storage (bytes for a two-metric experiment of mean/binary metrics):
  *   unit record   24-byte header (key, exposure, pending head, arm, flags,
  *                 segment) + 8 bytes per metric variable: 24 + 2·2·8 = 56,
- *                 stored 64 bytes apart (a record of up to 64 bytes takes one
- *                 cache line, not two); records live in fixed-size chunks, so
- *                 growth never copies;
+ *                 then its 8-byte id link (struct idlink), stored 64 bytes
+ *                 apart (a record of up to 56 bytes takes one cache line with
+ *                 its link, not two; a larger one is stored rec_size + 8
+ *                 apart); records live in fixed-size chunks, so growth never
+ *                 copies;
  *   index         open addressing (linear probing) of 8-byte entries: the
  *                 record number and the high half of the unit's key (a probe
  *                 reads a record only when the key probably matches); load
@@ -20,11 +22,10 @@
  *                 order, each unit's linked from its record (8 bytes after
  *                 it: the newest entry's position and a 32-bit filter of
  *                 the unit's ids, so a new id is known new from the record
- *                 alone, with no memory read of its own; see "ids"); ids of
- *                 events with no record, and ids a sweep or the ring's
- *                 growth takes out of the ring, sit in a table of 16-byte
- *                 slots (hash, time), linear probing, load ≤ 0.5, read only
- *                 while it holds ids within the horizon.
+ *                 alone, with no memory read of its own; see "ids"); the
+ *                 ids that have no chain sit in a table of 16-byte slots
+ *                 (hash, time), linear probing, load ≤ 0.5, read only while
+ *                 it may hold one within the horizon.
  * The index, the id table and the ring, once 4 MiB, double in place (a
  * bigmem region: only the new half is fresh memory).
  * Nothing is allocated per event in steady state: chunks, the index, the
@@ -182,7 +183,7 @@ struct ledger {
     /* event ids outside the ring */
     struct idslot *ids;
     size_t ids_cap, ids_n;
-    int64_t ids_max_t;            /* latest time put in the table, INT64_MIN before any */
+    int64_t ids_max_t;            /* latest time put in the table (but see table_mode), INT64_MIN before any */
     struct big_region ids_region; /* holds the table once it is large */
     /* multi-arm units: key → mask of arms named */
     struct multi {
@@ -331,8 +332,8 @@ static void index_put(uint64_t *ix, size_t cap, uint64_t key, uint32_t i)
     ix[s] = IX_ENTRY(key, i + 1);
 }
 
-/* From this size on, the index and the id table grow in place in a region
- * (bigmem.h): doubling then touches only the new half. */
+/* From this size on, the index, the id table and the id ring grow in place
+ * in a region (bigmem.h): doubling then touches only the new half. */
 #define TABLE_REGION_MIN ((size_t)4 << 20)
 
 /* Gives a table of old_bytes (at *tab; in region g when g->p) new_bytes,
@@ -765,12 +766,15 @@ static void recompute(struct ledger *l, struct urec *r)
  * chain to be found by: those of events with no record, those a sweep takes
  * out of the ring with the record that named them, the ring's stragglers,
  * and ids loaded from a snapshot or merged from another ledger (both save
- * ids as (hash, time) only). It is probed only while it may hold an id
- * within the horizon (ids_max_t). The table and the chains never both hold
- * an id within the horizon: an id is added to one only when neither knew
- * it. */
+ * ids as (hash, time) only). It is probed only while it may hold one within
+ * the horizon (ids_max_t). It also holds every id of a unit with more than
+ * CHAIN_MAX ids within the horizon (table_mode), which probes it always;
+ * those ids do not count in ids_max_t until the unit's record goes. The
+ * table and the chains never both hold an id within the horizon: an id is
+ * added to one only when neither knew it. */
 
 #define IR_MIN 1024 /* the ring's first capacity (entries) */
+#define IR_MAX (UINT64_C(1) << 31) /* its largest: a link's 32 bits must reach across it */
 
 /* The time before which an id is forgotten: ids older than the horizon,
  * counted back from the latest event time, no longer make duplicates. */
@@ -850,8 +854,10 @@ static int ids_rebuild(struct ledger *l, size_t cap)
 /* True when the id was seen within the horizon (see ids_cutoff); otherwise
  * remembers it, with time t. An expired id met on the probe is treated as
  * absent, and its slot is reused for the id remembered: so the table fills
- * more slowly and the in-place expiry passes (ids_expire) come less often. */
-static int id_seen(struct ledger *l, uint64_t h, int64_t t)
+ * more slowly and the in-place expiry passes (ids_expire) come less often.
+ * `owned`: the id is of a unit whose own ids are all in the table (see
+ * "ids"), which probes it anyway; any other raises ids_max_t. */
+static int id_seen(struct ledger *l, uint64_t h, int64_t t, bool owned)
 {
     if (!h)
         h = 1;
@@ -870,6 +876,8 @@ static int id_seen(struct ledger *l, uint64_t h, int64_t t)
         if (o->t < cutoff) {
             if (o->h == h) { /* seen, but longer ago than the horizon */
                 o->t = t;
+                if (!owned && t > l->ids_max_t)
+                    l->ids_max_t = t;
                 return 0;
             }
             if (!reuse)
@@ -884,21 +892,24 @@ static int id_seen(struct ledger *l, uint64_t h, int64_t t)
     }
     reuse->h = h;
     reuse->t = t;
-    if (t > l->ids_max_t)
+    if (!owned && t > l->ids_max_t)
         l->ids_max_t = t;
     return 0;
 }
 
-/* True when the table may hold an id within the horizon. */
+/* True when the table may hold an id within the horizon of a unit that
+ * does not keep all its ids there. */
 static bool table_live(const struct ledger *l)
 {
     return l->ids_cap && l->ids_max_t >= ids_cutoff(l);
 }
 
-/* True when the table holds h within the horizon (it changes nothing). */
-static bool table_seen(const struct ledger *l, uint64_t h)
+/* True when the table holds h within the horizon (it changes nothing);
+ * probed only when it may (table_live), or when `own` (the unit keeps its
+ * ids there). */
+static bool table_seen(const struct ledger *l, uint64_t h, bool own)
 {
-    if (!table_live(l))
+    if (!l->ids_cap || (!own && !table_live(l)))
         return false;
     int64_t cutoff = ids_cutoff(l);
     size_t mask = l->ids_cap - 1;
@@ -952,48 +963,95 @@ static bool chain_each(struct ledger *l, struct urec *r, bool (*fn)(struct ledge
     }
 }
 
+/* A unit with more than CHAIN_MAX ids within the horizon would walk its
+ * whole chain for nearly every id (its filter full), one memory read an
+ * entry: its ids go to the table instead, for good (table_mode). */
+#define CHAIN_MAX 32
+
+/* An idlink of head 0 and an all-ones filter (never otherwise: a chain is
+ * cleared when it has left the ring, see chain_add): the unit's ids are in
+ * the table. */
+static bool table_mode(const struct ledger *l, const struct urec *r)
+{
+    const struct idlink *k = idl(l, r);
+    return !k->head && k->filt == UINT32_MAX;
+}
+
+struct walk {
+    uint64_t h;    /* the id sought */
+    uint32_t filt; /* the filter, rebuilt */
+    uint32_t n;    /* ids passed */
+};
+
 static bool match_or_filter(struct ledger *l, struct ident *e, void *ctx)
 {
     (void)l;
-    uint64_t *hf = ctx; /* hf[0]: the id sought; hf[1]: the filter rebuilt */
-    if (e->h == hf[0])
+    struct walk *w = ctx;
+    if (e->h == w->h)
         return true;
-    hf[1] |= id_bits(e->h);
+    w->filt |= id_bits(e->h);
+    w->n++;
     return false;
 }
 
+static int chain_to_table(struct ledger *l, struct urec *r, bool owned);
+
 /* True when r's chain holds h within the horizon; reads the chain only when
- * the filter says it may, and then makes the filter exact. */
+ * the filter says it may, and then makes the filter exact (or moves a long
+ * chain to the table). */
 static bool chain_seen(struct ledger *l, struct urec *r, uint64_t h)
 {
     struct idlink *k = idl(l, r);
     uint32_t b = id_bits(h);
     if ((k->filt & b) != b || !ring_age(l, k->head))
         return false;
-    uint64_t hf[2] = {h, 0};
-    if (chain_each(l, r, match_or_filter, hf))
+    struct walk w = {h, 0, 0};
+    if (chain_each(l, r, match_or_filter, &w))
         return true;
-    k->filt = (uint32_t)hf[1];
+    k->filt = w.filt;
+    if (w.n > CHAIN_MAX) {
+        if (chain_to_table(l, r, true) < 0)
+            l->failed = true; /* out of memory: reported by the next ledger_apply or ledger_save */
+        k->filt = UINT32_MAX; /* head is 0: table_mode */
+    }
     return false;
 }
+
+struct to_table_ctx {
+    bool owned;
+    int rc;
+};
 
 static bool to_table(struct ledger *l, struct ident *e, void *ctx)
 {
-    int *rc = ctx;
-    if (id_seen(l, e->h, e->t) < 0)
-        *rc = -1;
-    e->h = 0; /* now a gap: the id is in one place only */
+    struct to_table_ctx *c = ctx;
+    if (id_seen(l, e->h, e->t, c->owned) < 0)
+        c->rc = -1;
+    e->h = 0; /* now a gap, which the tail passes: the id is in one place only */
+    e->t = INT64_MIN;
     return false;
 }
 
-/* Moves the ids of r's chain within the horizon to the table (r is about to
- * go); -1 when out of memory. */
-static int chain_to_table(struct ledger *l, struct urec *r)
+/* Moves the ids of r's chain within the horizon to the table (`owned`: r
+ * stays and keeps its ids there); -1 when out of memory. */
+static int chain_to_table(struct ledger *l, struct urec *r, bool owned)
 {
-    int rc = 0;
-    chain_each(l, r, to_table, &rc);
+    struct to_table_ctx c = {owned, 0};
+    chain_each(l, r, to_table, &c);
     idl(l, r)->head = 0;
-    return rc;
+    return c.rc;
+}
+
+/* Before record r goes (a sweep): its ids go to the table, where a unit
+ * with no record finds them. */
+static int ids_orphaned(struct ledger *l, struct urec *r)
+{
+    if (table_mode(l, r)) { /* its ids are in the table already, but owned */
+        if (l->max_time > l->ids_max_t) /* no id is later than max_time */
+            l->ids_max_t = l->max_time;
+        return 0;
+    }
+    return chain_to_table(l, r, false);
 }
 
 /* Doubles the ring, keeping each entry at its position. */
@@ -1034,12 +1092,12 @@ static int ring_room(struct ledger *l)
      * are (stragglers), which then move to the table */
     uint64_t span = l->ir_cap / 8, live = 0;
     for (uint64_t p = l->ir_tail; p < l->ir_tail + span; p++)
-        live += ring_at(l, p)->t >= cutoff;
-    if (!l->ir_cap || live * 2 > span)
+        live += ring_at(l, p)->h && ring_at(l, p)->t >= cutoff;
+    if (!l->ir_cap || (live * 2 > span && l->ir_cap < IR_MAX))
         return ring_grow(l);
     for (uint64_t p = l->ir_tail; p < l->ir_tail + span; p++) {
         const struct ident *e = ring_at(l, p);
-        if (e->h && e->t >= cutoff && id_seen(l, e->h, e->t) < 0)
+        if (e->h && e->t >= cutoff && id_seen(l, e->h, e->t, false) < 0)
             return -1; /* (then behind the tail: out of the ring) */
     }
     l->ir_tail += span;
@@ -1062,8 +1120,10 @@ static int chain_add(struct ledger *l, struct urec *r, uint64_t h, int64_t t)
      * wait for the stores before it */
     __builtin_prefetch(ring_at(l, l->ir_next + 8), 1);
     __builtin_prefetch(ring_at(l, l->ir_tail + 8));
-    if (!ring_age(l, k->head)) /* every id of the chain has left the ring */
+    if (!ring_age(l, k->head)) { /* every id of the chain has left the ring */
+        k->head = 0;             /* (a stale link could name another unit's entry) */
         k->filt = 0;
+    }
     *ring_at(l, l->ir_next) = (struct ident){h, t, k->head, 0};
     k->head = (uint32_t)l->ir_next++;
     k->filt |= id_bits(h);
@@ -1098,15 +1158,19 @@ static int each_id(const struct ledger *l, int (*fn)(void *ctx, uint64_t h, int6
 static bool id_known(struct ledger *l, const struct qev *q, struct urec *r)
 {
     uint64_t h = q->idh ? q->idh : 1;
-    return table_seen(l, h) || (r && chain_seen(l, r, h));
+    bool own = r && table_mode(l, r);
+    return table_seen(l, h, own) || (r && !own && chain_seen(l, r, h));
 }
 
 /* Remembers a queued event's id, once the event is applied: in its unit's
- * chain, or in the table when the unit has no record; -1 when out of memory. */
+ * chain, or in the table when the unit has no record or keeps its ids
+ * there; -1 when out of memory. */
 static int id_keep(struct ledger *l, const struct qev *q, struct urec *r)
 {
     uint64_t h = q->idh ? q->idh : 1;
-    return r ? chain_add(l, r, h, q->t) : id_seen(l, h, q->t);
+    if (r && !table_mode(l, r))
+        return chain_add(l, r, h, q->t);
+    return id_seen(l, h, q->t, r != NULL);
 }
 
 /* ---------------------------------------------------------------- multi-arm */
@@ -1253,8 +1317,8 @@ static void sweep(struct ledger *l)
                 r->flags |= F_DEAD;
         }
         if (r->flags & F_DEAD) {
-            if (chain_to_table(l, r) < 0)
-                l->failed = true;
+            if (ids_orphaned(l, r) < 0)
+                l->failed = true; /* (reported by the next ledger_apply or ledger_save) */
             moved = true;
             continue;
         }
@@ -2033,7 +2097,7 @@ void counters_add(struct counters *a, const struct counters *b)
 
 static int absorb_id(void *ctx, uint64_t h, int64_t t)
 {
-    return id_seen(ctx, h, t) < 0;
+    return id_seen(ctx, h, t, false) < 0;
 }
 
 int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)

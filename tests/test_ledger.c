@@ -387,33 +387,23 @@ static void test_ledger__duplicates_within_horizon_only(void **state)
     assert_rel_close(M(f, M_RATIO, CTL)->mean[1], 3, 0);
 }
 
-/* Rule: a repeated id is a duplicate while it was seen within the horizon,
- * counted back from the latest time of the events not found duplicates (a
- * duplicate moves nothing); an id seen longer ago counts as new and is
- * remembered again from then. A naive model of that rule (a time per unit
- * and id, every event compared in arrival order) against the ledger on a
- * random stream made to reach each place the ledger keeps ids in: 400 units,
- * 40 ids each, 15 s apart for 70,000 events (12 days), a 12 h horizon (so
- * more ids than the ring's first size); 5% of events repeat a recent one,
- * 10% arrive up to 3 h late, 1 in 500 is 6 h early (it holds the ring's tail
- * while the ids behind it expire); units 200 and up are never assigned, so
- * sweeps remove their records with ids still within the horizon; page_view
- * is no metric's, so the first events of a unit may have no record; the
- * ledger is saved and loaded half way. No covariate: outcomes of unassigned
- * units are dropped at the next daily sweep. (Counted once with temporary
- * counters in the ledger: 26,212 ids of events with no record, 2,870 ids
- * moved out of the ring by sweeps, 11 stragglers, the ring grown from 1,024
- * to 8,192 entries, 5,313 duplicates found in chains and 4,685 in the
- * table.) */
-static void test_ledger__duplicates_match_a_naive_model(void **state)
+/* A naive model of the rule of duplicates (a time per unit and id, every
+ * event compared in arrival order) against the ledger, on a random stream of
+ * `events` 15 s apart over `units` units with `ids` ids each and a 12 h
+ * horizon: 5% of events repeat a recent one, 10% arrive up to 3 h late, 1
+ * in 500 is 6 h early (it holds the ring's tail while the ids behind it
+ * expire); units from `assigned` on are never assigned, so sweeps remove
+ * their records with ids still within the horizon; page_view is no metric's,
+ * so the first events of a unit may have no record; the ledger is saved and
+ * loaded half way. No covariate: outcomes of unassigned units are dropped at
+ * the next daily sweep. Returns the duplicates. */
+static uint64_t naive_model_run(int units, int ids, int events, int assigned, unsigned long seed)
 {
-    (void)state;
     static const char cfg_text[] =
         "{\"experiment\":\"bakery-banner\","
         " \"arms\":[{\"name\":\"control\",\"weight\":1},{\"name\":\"treatment\",\"weight\":1}],"
         " \"window\":{\"start\":\"2026-11-02T00:00:00Z\",\"end\":\"2026-11-30T00:00:00Z\"},"
         " \"metrics\":[{\"name\":\"spend\",\"type\":\"mean\",\"event\":\"spend\"}]}";
-    enum { UNITS = 400, IDS = 40, EVENTS = 70000 };
     const int64_t horizon = 12 * US_PER_HOUR;
     struct config cfg;
     struct layout lay;
@@ -422,25 +412,24 @@ static void test_ledger__duplicates_match_a_naive_model(void **state)
     assert_int_equal(layout_init(&lay, &cfg, US_PER_HOUR, horizon, &e), 0);
     struct decoder *dec = decoder_new();
     struct ledger *l = ledger_new(&lay);
-    int64_t(*remembered)[IDS] = malloc(sizeof(int64_t[UNITS][IDS]));
-    for (int u = 0; u < UNITS; u++)
-        for (int k = 0; k < IDS; k++)
-            remembered[u][k] = INT64_MIN; /* never seen */
+    int64_t *remembered = malloc((size_t)units * (size_t)ids * sizeof *remembered);
+    for (int i = 0; i < units * ids; i++)
+        remembered[i] = INT64_MIN; /* never seen */
     int64_t base, latest = INT64_MIN;
     assert_int_equal(time_parse_rfc3339("2026-11-03T00:00:00Z", 20, &base), 0);
     gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 20261202);
+    gsl_rng_set(rng, seed);
     uint64_t dups = 0;
     int last_u = 0, last_k = 0;
     int64_t last_t = base;
-    for (int i = 0; i < EVENTS; i++) {
+    for (int i = 0; i < events; i++) {
         int u, k;
         int64_t t = base + (int64_t)i * 15 * US_PER_SEC;
         if (i && gsl_rng_uniform(rng) < 0.05) {
             u = last_u, k = last_k, t = last_t; /* a repeat of a recent line */
         } else {
-            u = (int)gsl_rng_uniform_int(rng, UNITS);
-            k = (int)gsl_rng_uniform_int(rng, IDS);
+            u = (int)gsl_rng_uniform_int(rng, (unsigned long)units);
+            k = (int)gsl_rng_uniform_int(rng, (unsigned long)ids);
             double x = gsl_rng_uniform(rng);
             if (x < 0.10)
                 t -= (int64_t)(gsl_rng_uniform(rng) * 3 * US_PER_HOUR);
@@ -452,7 +441,7 @@ static void test_ledger__duplicates_match_a_naive_model(void **state)
         char b[512], ts[40];
         time_format(t, ts, sizeof ts);
         double kind = gsl_rng_uniform(rng);
-        if (kind < 0.15 && u < 200)
+        if (kind < 0.15 && u < assigned)
             snprintf(b, sizeof b, "{\"kind\":\"assign\",\"time\":\"%s\",\"unit\":\"u%d\",\"exp\":\"bakery-banner\","
                      "\"arm\":\"%s\",\"id\":\"e%d-%d\"}", ts, u, u % 2 ? "treatment" : "control", u, k);
         else
@@ -463,14 +452,15 @@ static void test_ledger__duplicates_match_a_naive_model(void **state)
         assert_int_equal(ledger_apply(l, &ev), 0);
         /* the model */
         int64_t cutoff = latest == INT64_MIN ? INT64_MIN : latest - horizon;
-        if (remembered[u][k] != INT64_MIN && remembered[u][k] >= cutoff) {
+        int64_t *m = &remembered[u * ids + k];
+        if (*m != INT64_MIN && *m >= cutoff) {
             dups++;
         } else {
-            remembered[u][k] = t;
+            *m = t;
             if (t > latest)
                 latest = t;
         }
-        if (i == EVENTS / 2) { /* a snapshot round trip */
+        if (i == events / 2) { /* a snapshot round trip */
             struct byte_buf mb = {0};
             assert_int_equal(ledger_save(l, byte_buf_write, &mb), 0);
             ledger_free(l);
@@ -481,15 +471,99 @@ static void test_ledger__duplicates_match_a_naive_model(void **state)
         }
     }
     ledger_finish(l);
-    assert_true(dups > 3000); /* the stream does repeat ids */
     assert_int_equal(ledger_counters(l)->duplicates, dups);
-    assert_int_equal(ledger_counters(l)->accepted, EVENTS);
+    assert_int_equal(ledger_counters(l)->accepted, events);
     gsl_rng_free(rng);
     free(remembered);
     ledger_free(l);
     decoder_free(dec);
     layout_release(&lay);
     config_release(&cfg);
+    return dups;
+}
+
+/* Rule: a repeated id is a duplicate while it was seen within the horizon,
+ * counted back from the latest time of the events not found duplicates (a
+ * duplicate moves nothing); an id seen longer ago counts as new and is
+ * remembered again from then. The naive model above against the ledger, on
+ * two streams made to reach each place the ledger keeps ids in:
+ * - 400 units (200 assigned), 40 ids each, 70,000 events (12 days): more ids
+ *   within the horizon than the ring's first size. (Counted once with
+ *   temporary counters in the ledger: 26,212 ids of events with no record,
+ *   2,870 ids moved out of the ring by sweeps, 11 stragglers, the ring grown
+ *   from 1,024 to 8,192 entries, 5,313 duplicates found in chains and 4,685
+ *   in the table.)
+ * - 6 units (3 assigned), 400 ids each, 30,000 events (5 days): each unit
+ *   has about 480 ids within the horizon, so each soon keeps its ids in the
+ *   table (more than CHAIN_MAX, ledger.c), and sweeps remove unassigned
+ *   units that do. (Counted the same way: 14 switches of a unit to the
+ *   table, 5 records removed while in it, 14,610 duplicates found in the
+ *   table and 63 in chains.) */
+static void test_ledger__duplicates_match_a_naive_model(void **state)
+{
+    (void)state;
+    assert_true(naive_model_run(400, 40, 70000, 200, 20261202) > 3000); /* the stream does repeat ids */
+    assert_true(naive_model_run(6, 400, 30000, 3, 20261203) > 3000);
+}
+
+/* Rule: an id is remembered from its latest non-duplicate event. Units with
+ * no record (page_view is no metric's) keep their ids in the table: X at
+ * 10:00 on the 3rd has expired by the 11:30 line on the 4th (latest 12:00,
+ * horizon 24 h, cutoff 12:00 on the 3rd), which is new and remembered; the
+ * 11:40 line repeats it within the horizon: 1 duplicate (worked by hand). */
+static void test_ledger__id_remembered_again_after_expiry(void **state)
+{
+    struct fx *f = *state;
+    static const char *const lines[] = {
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-03T10:00:00Z\",\"unit\":\"u1\",\"metric\":\"page_view\",\"value\":1,\"id\":\"X\"}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-04T12:00:00Z\",\"unit\":\"u2\",\"metric\":\"page_view\",\"value\":1}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-04T11:30:00Z\",\"unit\":\"u1\",\"metric\":\"page_view\",\"value\":1,\"id\":\"X\"}",
+        "{\"kind\":\"outcome\",\"time\":\"2026-11-04T11:40:00Z\",\"unit\":\"u1\",\"metric\":\"page_view\",\"value\":1,\"id\":\"X\"}",
+    };
+    for (int i = 0; i < 4; i++)
+        assert_int_equal(feed(f, lines[i]), 0);
+    assert_int_equal(ledger_counters(f->l)->duplicates, 1);
+}
+
+/* Rule: a unit with many ids within the horizon still has each repeat found
+ * (the ledger then keeps its ids in its table, ledger.c: CHAIN_MAX 32). One
+ * assigned unit sends 300 outcomes with distinct ids a minute apart (5 h),
+ * then all 300 again: 300 duplicates; saved and loaded, both copies take the
+ * first 100 once more: 100 more duplicates each. The unit's ids went to the
+ * table: the ledger's id memory then includes a table (at least 4,096
+ * slots of 16 bytes) besides the ring. Counted from the loops. */
+static void test_ledger__busy_unit_keeps_every_id(void **state)
+{
+    struct fx *f = *state;
+    int64_t t0;
+    assert_int_equal(time_parse_rfc3339("2026-11-03T00:00:00Z", 20, &t0), 0);
+    assign(f, "busy", "control", "2026-11-02T23:00:00Z");
+    char b[512], ts[40];
+    for (int round = 0; round < 2; round++)
+        for (int i = 0; i < 300; i++) {
+            time_format(t0 + (int64_t)i * 60 * US_PER_SEC, ts, sizeof ts);
+            snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"busy\",\"metric\":\"spend\","
+                     "\"value\":1,\"id\":\"b%d\"}", ts, i);
+            feed_to(f, f->l, b);
+        }
+    assert_int_equal(ledger_counters(f->l)->duplicates, 300);
+    struct ledger_mem mem;
+    ledger_memory_parts(f->l, &mem);
+    assert_true(mem.ids >= 4096 * 16 + 1024 * 24);
+    struct ledger *copy = saved_copy(f);
+    struct ledger *both[2] = {f->l, copy};
+    for (int k = 0; k < 2; k++) {
+        for (int i = 0; i < 100; i++) {
+            time_format(t0 + (int64_t)i * 60 * US_PER_SEC, ts, sizeof ts);
+            snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"busy\",\"metric\":\"spend\","
+                     "\"value\":1,\"id\":\"b%d\"}", ts, i);
+            feed_to(f, both[k], b);
+        }
+        ledger_finish(both[k]);
+        assert_int_equal(ledger_counters(both[k])->duplicates, 400);
+        assert_rel_close(ledger_moments(both[k], M_SPEND, CTL)->mean[0], 300, 0);
+    }
+    ledger_free(copy);
 }
 
 /* Rule: the final summary does not depend on arrival order within the
@@ -639,6 +713,8 @@ int main(void)
         cmocka_unit_test_setup_teardown(test_ledger__duplicates_by_id, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__duplicates_within_horizon_only, setup, teardown),
         cmocka_unit_test(test_ledger__duplicates_match_a_naive_model),
+        cmocka_unit_test_setup_teardown(test_ledger__id_remembered_again_after_expiry, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__busy_unit_keeps_every_id, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__large_tables_keep_every_entry, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__order_within_lateness, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__orphans_and_ignored, setup, teardown),
