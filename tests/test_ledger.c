@@ -525,6 +525,18 @@ static void test_ledger__id_remembered_again_after_expiry(void **state)
     assert_int_equal(ledger_counters(f->l)->duplicates, 1);
 }
 
+/* A spend of 1 by unit busy with id b<i>, at i minutes past 11-03 00:00. */
+static void busy_spend(struct fx *f, struct ledger *l, int i)
+{
+    int64_t t0;
+    assert_int_equal(time_parse_rfc3339("2026-11-03T00:00:00Z", 20, &t0), 0);
+    char b[512], ts[40];
+    time_format(t0 + (int64_t)i * 60 * US_PER_SEC, ts, sizeof ts);
+    snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"busy\",\"metric\":\"spend\","
+             "\"value\":1,\"id\":\"b%d\"}", ts, i);
+    feed_to(f, l, b);
+}
+
 /* Rule: a unit with many ids within the horizon still has each repeat found
  * (the ledger then keeps its ids in its table, ledger.c: CHAIN_MAX 32). One
  * assigned unit sends 300 outcomes with distinct ids a minute apart (5 h),
@@ -535,17 +547,10 @@ static void test_ledger__id_remembered_again_after_expiry(void **state)
 static void test_ledger__busy_unit_keeps_every_id(void **state)
 {
     struct fx *f = *state;
-    int64_t t0;
-    assert_int_equal(time_parse_rfc3339("2026-11-03T00:00:00Z", 20, &t0), 0);
     assign(f, "busy", "control", "2026-11-02T23:00:00Z");
-    char b[512], ts[40];
     for (int round = 0; round < 2; round++)
-        for (int i = 0; i < 300; i++) {
-            time_format(t0 + (int64_t)i * 60 * US_PER_SEC, ts, sizeof ts);
-            snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"busy\",\"metric\":\"spend\","
-                     "\"value\":1,\"id\":\"b%d\"}", ts, i);
-            feed_to(f, f->l, b);
-        }
+        for (int i = 0; i < 300; i++)
+            busy_spend(f, f->l, i);
     assert_int_equal(ledger_counters(f->l)->duplicates, 300);
     struct ledger_mem mem;
     ledger_memory_parts(f->l, &mem);
@@ -553,12 +558,8 @@ static void test_ledger__busy_unit_keeps_every_id(void **state)
     struct ledger *copy = saved_copy(f);
     struct ledger *both[2] = {f->l, copy};
     for (int k = 0; k < 2; k++) {
-        for (int i = 0; i < 100; i++) {
-            time_format(t0 + (int64_t)i * 60 * US_PER_SEC, ts, sizeof ts);
-            snprintf(b, sizeof b, "{\"kind\":\"outcome\",\"time\":\"%s\",\"unit\":\"busy\",\"metric\":\"spend\","
-                     "\"value\":1,\"id\":\"b%d\"}", ts, i);
-            feed_to(f, both[k], b);
-        }
+        for (int i = 0; i < 100; i++)
+            busy_spend(f, both[k], i);
         ledger_finish(both[k]);
         assert_int_equal(ledger_counters(both[k])->duplicates, 400);
         assert_rel_close(ledger_moments(both[k], M_SPEND, CTL)->mean[0], 300, 0);
