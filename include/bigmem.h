@@ -6,10 +6,9 @@
  * used); from 4 MiB, when `huge`, they are aligned to 2 MiB and marked for
  * transparent huge pages where the kernel offers them: the unit index and
  * the unit records are read at random, and with 4 KiB pages nearly every
- * such read would also miss the TLB. A huge page is
- * backed whole at its first touch, so a caller asks for them only once its
- * structure is large anyway (a watch keeps one ledger per partition, most of
- * them small).
+ * such read would also miss the TLB. A huge page is backed whole at its
+ * first touch, so a caller asks for them only once its structure is large
+ * anyway (a watch keeps one ledger per partition, most of them small).
  *
  * big_free must be given the size big_alloc was given.
  *

@@ -342,14 +342,14 @@ extern "C" uint64_t decoder_slow_lines(const struct decoder *d)
     return d->slow;
 }
 
-/* What every decode starts from: no fields, value 1. The attrs array past
- * n_attrs is left as it is (512 bytes; only n_attrs pairs mean anything). */
 static void str_none(str &s) noexcept
 {
     s.p = nullptr;
     s.n = 0;
 }
 
+/* What every decode starts from: no fields, value 1. The attrs array past
+ * n_attrs is left as it is (512 bytes; only n_attrs pairs mean anything). */
 static void ev_clear(struct event *ev) noexcept
 {
     ev->kind = (enum ev_kind)0;

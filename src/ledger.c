@@ -132,7 +132,7 @@ struct qev {
     uint64_t key;   /* SipHash of the unit id */
     struct urec *rec; /* the record the index named at the record step: probably the
                          unit's (unit_of checks), NULL when none or after records moved */
-    uint64_t idh;   /* SipHash of the id (scoped by unit), when has_id */
+    uint64_t idh;   /* SipHash of the id (scoped by unit; 1 for 0), when has_id */
     int64_t t;      /* event time */
     double value;   /* outcome value */
     int32_t target; /* outcome: outcome-name index, -1 when no metric uses it */
@@ -357,6 +357,15 @@ static int table_grow(void **tab, size_t old_bytes, struct big_region *g, size_t
         memset(g->p, 0, old_bytes); /* already held: cheap to clear */
     *tab = g->p;
     return 0;
+}
+
+/* Frees a table of `bytes` at tab, held by region g once it grew into one. */
+static void table_free(void *tab, size_t bytes, struct big_region *g)
+{
+    if (g->p)
+        big_region_free(g);
+    else
+        big_free(tab, bytes);
 }
 
 static int index_grow(struct ledger *l)
@@ -996,15 +1005,23 @@ static bool match_or_filter(struct ledger *l, struct ident *e, void *ctx)
 
 static int chain_to_table(struct ledger *l, struct urec *r, bool owned);
 
+/* The ring_age of r's newest id when r's filter says h may be in its
+ * chain; 0 when h is not (or the chain has left the ring). */
+static uint64_t chain_may_hold(const struct ledger *l, const struct urec *r, uint64_t h)
+{
+    const struct idlink *k = idl(l, r);
+    uint32_t b = id_bits(h);
+    return (k->filt & b) == b ? ring_age(l, k->head) : 0;
+}
+
 /* True when r's chain holds h within the horizon; reads the chain only when
  * the filter says it may, and then makes the filter exact (or moves a long
  * chain to the table). */
 static bool chain_seen(struct ledger *l, struct urec *r, uint64_t h)
 {
-    struct idlink *k = idl(l, r);
-    uint32_t b = id_bits(h);
-    if ((k->filt & b) != b || !ring_age(l, k->head))
+    if (!chain_may_hold(l, r, h))
         return false;
+    struct idlink *k = idl(l, r);
     struct walk w = {h, 0, 0};
     if (chain_each(l, r, match_or_filter, &w))
         return true;
@@ -1080,12 +1097,18 @@ static int ring_grow(struct ledger *l)
     return 0;
 }
 
+/* Moves the ring's tail past at most `most` expired entries. */
+static void ring_pass(struct ledger *l, int64_t cutoff, uint64_t most)
+{
+    for (; most && l->ir_tail < l->ir_next && ring_at(l, l->ir_tail)->t < cutoff; most--)
+        l->ir_tail++;
+}
+
 /* Makes room for one entry at ir_next; -1 when out of memory. */
 static int ring_room(struct ledger *l)
 {
     int64_t cutoff = ids_cutoff(l);
-    while (l->ir_tail < l->ir_next && ring_at(l, l->ir_tail)->t < cutoff)
-        l->ir_tail++;
+    ring_pass(l, cutoff, UINT64_MAX);
     if (l->ir_next - l->ir_tail < l->ir_cap)
         return 0;
     /* full of ids within the horizon: grow, unless only a few of the oldest
@@ -1129,9 +1152,7 @@ static int chain_add(struct ledger *l, struct urec *r, uint64_t h, int64_t t)
     k->filt |= id_bits(h);
     /* the tail passes up to two expired entries an append, so the ring
      * stays about as long as the horizon's ids */
-    int64_t cutoff = ids_cutoff(l);
-    for (int i = 0; i < 2 && l->ir_tail < l->ir_next && ring_at(l, l->ir_tail)->t < cutoff; i++)
-        l->ir_tail++;
+    ring_pass(l, ids_cutoff(l), 2);
     return 0;
 }
 
@@ -1157,9 +1178,8 @@ static int each_id(const struct ledger *l, int (*fn)(void *ctx, uint64_t h, int6
  * id: see id_keep). */
 static bool id_known(struct ledger *l, const struct qev *q, struct urec *r)
 {
-    uint64_t h = q->idh ? q->idh : 1;
     bool own = r && table_mode(l, r);
-    return table_seen(l, h, own) || (r && !own && chain_seen(l, r, h));
+    return table_seen(l, q->idh, own) || (r && !own && chain_seen(l, r, q->idh));
 }
 
 /* Remembers a queued event's id, once the event is applied: in its unit's
@@ -1167,10 +1187,9 @@ static bool id_known(struct ledger *l, const struct qev *q, struct urec *r)
  * there; -1 when out of memory. */
 static int id_keep(struct ledger *l, const struct qev *q, struct urec *r)
 {
-    uint64_t h = q->idh ? q->idh : 1;
     if (r && !table_mode(l, r))
-        return chain_add(l, r, h, q->t);
-    return id_seen(l, h, q->t, r != NULL);
+        return chain_add(l, r, q->idh, q->t);
+    return id_seen(l, q->idh, q->t, r != NULL);
 }
 
 /* ---------------------------------------------------------------- multi-arm */
@@ -1364,15 +1383,19 @@ static void maybe_sweep(struct ledger *l)
 
 /* The record of a queued event's unit: the one found at its record step when
  * the key matches (records move only in a sweep's compaction, which forgets
- * every such guess), else looked up; created when `create`. */
-static struct urec *unit_of(struct ledger *l, const struct qev *q, bool create)
+ * every such guess), else looked up, and kept with the event for its later
+ * steps; created when `create`. */
+static struct urec *unit_of(struct ledger *l, struct qev *q, bool create)
 {
     if (q->rec && q->rec->key == q->key)
         return q->rec;
-    return unit_find(l, q->key, create);
+    struct urec *r = unit_find(l, q->key, create);
+    if (r)
+        q->rec = r;
+    return r;
 }
 
-static int apply_assign(struct ledger *l, const struct qev *q)
+static int apply_assign(struct ledger *l, struct qev *q)
 {
     const struct config *cfg = l->cfg;
     if (q->arm < 0) {
@@ -1436,7 +1459,7 @@ static int apply_assign(struct ledger *l, const struct qev *q)
     return REJ_NONE;
 }
 
-static int apply_outcome_event(struct ledger *l, const struct qev *q)
+static int apply_outcome_event(struct ledger *l, struct qev *q)
 {
     int e = q->target;
     if (e < 0) {
@@ -1471,7 +1494,7 @@ static int apply_outcome_event(struct ledger *l, const struct qev *q)
 }
 
 /* Applies one queued event: the join as it stood before the lookahead. */
-static int apply_queued(struct ledger *l, const struct qev *q)
+static int apply_queued(struct ledger *l, struct qev *q)
 {
     if (q->has_id) {
         struct urec *r = unit_of(l, q, false);
@@ -1569,13 +1592,9 @@ static inline __attribute__((always_inline)) void prefetch_pending(const struct 
  * may be there (see chain_seen). */
 static inline __attribute__((always_inline)) void prefetch_chain(const struct ledger *l, const struct qev *q)
 {
-    if (q->has_id && q->rec) {
-        const struct idlink *k = idl(l, q->rec);
-        uint32_t b = id_bits(q->idh ? q->idh : 1);
-        uint64_t age;
-        if ((k->filt & b) == b && (age = ring_age(l, k->head)))
-            __builtin_prefetch(ring_at(l, l->ir_next - age));
-    }
+    uint64_t age;
+    if (q->has_id && q->rec && (age = chain_may_hold(l, q->rec, q->idh)))
+        __builtin_prefetch(ring_at(l, l->ir_next - age));
 }
 
 /* An assignment may expose its unit, which reads the whole pending list
@@ -1621,8 +1640,10 @@ int ledger_apply(struct ledger *l, const struct event *ev)
          * or shard, so de-duplication is exact however the units are split */
         struct hash_key k = {key, key ^ HASH_KEY_DEFAULT.k1};
         q->idh = siphash24(&k, ev->id.p, ev->id.n);
+        if (!q->idh)
+            q->idh = 1; /* 0 marks an empty slot or a gap */
         if (table_live(l))
-            __builtin_prefetch(&l->ids[(q->idh ? q->idh : 1) & (l->ids_cap - 1)]);
+            __builtin_prefetch(&l->ids[q->idh & (l->ids_cap - 1)]);
     }
     if (ev->kind == EV_ASSIGN) {
         q->arm = (int16_t)arm;
@@ -1710,20 +1731,11 @@ void ledger_free(struct ledger *l)
     for (size_t i = 0; i < l->n_chunks; i++)
         big_free(l->chunks[i], CHUNK_RECS * l->stride);
     free(l->chunks);
-    if (l->index_region.p)
-        big_region_free(&l->index_region);
-    else
-        big_free(l->index, l->index_cap * sizeof *l->index);
+    table_free(l->index, l->index_cap * sizeof *l->index, &l->index_region);
     for (int k = 0; k < l->n_pchunks; k++)
         big_free(l->pchunk[k], (pb_first(k + 1) - pb_first(k)) * sizeof(struct pblk));
-    if (l->ir_region.p)
-        big_region_free(&l->ir_region);
-    else
-        big_free(l->ir, l->ir_cap * sizeof *l->ir);
-    if (l->ids_region.p)
-        big_region_free(&l->ids_region);
-    else
-        big_free(l->ids, l->ids_cap * sizeof *l->ids);
+    table_free(l->ir, l->ir_cap * sizeof *l->ir, &l->ir_region);
+    table_free(l->ids, l->ids_cap * sizeof *l->ids, &l->ids_region);
     free(l->multi);
     free(l->days);
     for (size_t i = 0; i < l->n_segs; i++)
@@ -1782,11 +1794,9 @@ size_t ledger_n_records(const struct ledger *l)
 
 size_t ledger_memory(const struct ledger *l)
 {
-    sync(l);
-    return l->n_chunks * CHUNK_RECS * l->stride + l->index_cap * sizeof *l->index +
-           pb_bytes(l) + l->ids_cap * sizeof *l->ids + l->ir_cap * sizeof *l->ir +
-           l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days +
-           LOOKAHEAD * sizeof *l->ring;
+    struct ledger_mem m;
+    ledger_memory_parts(l, &m);
+    return m.records + m.index + m.pending + m.ids + m.other;
 }
 
 void ledger_memory_parts(const struct ledger *l, struct ledger_mem *m)

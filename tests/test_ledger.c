@@ -74,6 +74,13 @@ static int feed(struct fx *f, const char *line)
     return ledger_apply(f->l, &ev);
 }
 
+/* Feeds n event lines in order; asserts each decodes and applies. */
+static void feed_all(struct fx *f, const char *const *lines, size_t n)
+{
+    for (size_t i = 0; i < n; i++)
+        assert_int_equal(feed(f, lines[i]), 0);
+}
+
 static void assign(struct fx *f, const char *unit, const char *arm, const char *time)
 {
     char b[512];
@@ -379,8 +386,7 @@ static void test_ledger__duplicates_within_horizon_only(void **state)
         "{\"kind\":\"outcome\",\"time\":\"2026-11-04T12:01:00Z\",\"unit\":\"u2\",\"metric\":\"visit\",\"value\":1}",
         "{\"kind\":\"outcome\",\"time\":\"2026-11-04T12:01:00Z\",\"unit\":\"u1\",\"metric\":\"visit\",\"value\":1,\"id\":\"o2\"}",
     };
-    for (size_t i = 0; i < sizeof lines / sizeof lines[0]; i++)
-        assert_int_equal(feed(f, lines[i]), 0);
+    feed_all(f, lines, sizeof lines / sizeof lines[0]);
     ledger_finish(f->l);
     assert_int_equal(ledger_counters(f->l)->duplicates, 1);
     /* visits of u1 counted: o1, o2 and o2 again (ratio denominator, the window has no end) */
@@ -520,8 +526,7 @@ static void test_ledger__id_remembered_again_after_expiry(void **state)
         "{\"kind\":\"outcome\",\"time\":\"2026-11-04T11:30:00Z\",\"unit\":\"u1\",\"metric\":\"page_view\",\"value\":1,\"id\":\"X\"}",
         "{\"kind\":\"outcome\",\"time\":\"2026-11-04T11:40:00Z\",\"unit\":\"u1\",\"metric\":\"page_view\",\"value\":1,\"id\":\"X\"}",
     };
-    for (int i = 0; i < 4; i++)
-        assert_int_equal(feed(f, lines[i]), 0);
+    feed_all(f, lines, sizeof lines / sizeof lines[0]);
     assert_int_equal(ledger_counters(f->l)->duplicates, 1);
 }
 
