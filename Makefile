@@ -86,7 +86,7 @@ test: $(BUILD)/abtally $(TEST_BIN)
 # $(BUILD)/bench/) and prints one "name value unit" line per figure.
 # BENCH_UNITS (default 2000000 units, about 18M lines) and BENCH_RUNS
 # (default 3) size it.
-BENCH_BIN := $(addprefix $(BUILD)/bench/,parse_floor runstat bounds_time consume_floor)
+BENCH_BIN := $(addprefix $(BUILD)/bench/,parse_floor runstat bounds_time consume_floor randmem)
 bench: $(BUILD)/abtally $(BENCH_BIN)
 	$(Q)sh bench/run.sh $(BUILD)
 

@@ -26,7 +26,7 @@ DATA=$BB/data-$UNITS
 TMP=$BB/run.$$
 RESULTS=$BB/results.txt
 
-for p in "$AB" "$BB/parse_floor" "$BB/runstat" "$BB/bounds_time" "$BB/consume_floor"; do
+for p in "$AB" "$BB/parse_floor" "$BB/runstat" "$BB/bounds_time" "$BB/consume_floor" "$BB/randmem"; do
     [ -x "$p" ] || { echo "bench: $p is missing (run 'make bench')" >&2; exit 1; }
 done
 case $UNITS in '' | *[!0-9]*) echo "bench: BENCH_UNITS must be a whole number" >&2; exit 2 ;; esac
@@ -139,6 +139,14 @@ out replay_over_floor_by_round "$(calc "$PAIRED" 3)" ratio
 out exposed_units "$EXPOSED" units
 out replay_peak_rss "$RSS_KIB" KiB
 out replay_rss_per_unit "$RSS_PER_UNIT" bytes/unit
+
+# ------------------------------------------------------------------ memory
+# What a random cache line costs here (bench/randmem.c): the ledger reads
+# about three an event (index slot, unit record, pending block), prefetched.
+say "bench: a random cache line of 256 MiB (bench/randmem) ..."
+set -- $("$BB/randmem" 256)
+out random_line_prefetched_ns "$2" ns
+out random_line_latency_ns "$3" ns
 
 # ------------------------------------------------------------------ the join alone, and the ledger's memory
 say "bench: the join alone (decode + ledger, no records) and the ledger's memory ..."
