@@ -102,7 +102,7 @@ out log_bytes "$BYTES" bytes
 # The lookahead's prefetches as compiled: a helper that does nothing but prefetch can be
 # dropped by the compiler (DEVELOPERS.md, Conventions); 7 with gcc 12 -O2 (index slot,
 # id-table slot, record, record end, pending head, newest id of the unit's chain, an
-# assignment's second pending block).
+# assignment's next pending blocks: one instruction in a loop).
 if command -v objdump > /dev/null; then
     out ledger_apply_prefetches "$(objdump -d --no-show-raw-insn "$AB" | awk '/<ledger_apply>:/,/^$/' | grep -c prefetch || :)" instructions
 fi
