@@ -13,13 +13,7 @@
 
 #include "err.h"
 #include "seq.h"
-
-static double now(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
-}
+#include "timefmt.h"
 
 static int cmp(const void *a, const void *b)
 {
@@ -45,12 +39,12 @@ int main(int argc, char **argv)
     struct err e;
     err_clear(&e);
     for (int i = 0; i < reps; i++) {
-        double t0 = now();
+        double t0 = time_mono_s();
         if (seq_bounds(&d, k, t, out, &e)) {
             fprintf(stderr, "bounds_time: %s\n", e.msg);
             return 1;
         }
-        ms[i] = 1e3 * (now() - t0);
+        ms[i] = 1e3 * (time_mono_s() - t0);
     }
     qsort(ms, (size_t)reps, sizeof *ms, cmp);
     printf("%d %.3f %.3f %.3f %.6f\n", k, ms[reps / 2], ms[0], ms[reps - 1], out[k - 1].z);

@@ -20,13 +20,7 @@
 
 #include "err.h"
 #include "kafka.h"
-
-static double now(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
-}
+#include "timefmt.h"
 
 int main(int argc, char **argv)
 {
@@ -35,7 +29,7 @@ int main(int argc, char **argv)
         return 2;
     }
     const char *topic = argv[2];
-    double t0 = now();
+    double t0 = time_mono_s();
     struct err e;
     err_clear(&e);
     char errstr[512];
@@ -100,7 +94,7 @@ int main(int argc, char **argv)
     }
     rd_kafka_consumer_close(rk);
     rd_kafka_destroy(rk);
-    printf("%" PRIu64 " %" PRIu64 " %.6f\n", messages, bytes, now() - t0);
+    printf("%" PRIu64 " %" PRIu64 " %.6f\n", messages, bytes, time_mono_s() - t0);
     free(high);
     free(next);
     return 0;

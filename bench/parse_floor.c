@@ -28,13 +28,7 @@
 #include "event_ref.h"
 #include "ledger.h"
 #include "source.h"
-
-static double now(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
-}
+#include "timefmt.h"
 
 static int fail(const char *what, const char *msg)
 {
@@ -71,7 +65,7 @@ int main(int argc, char **argv)
         return fail("decoder", "out of memory");
     unsigned long long lines = 0, accepted = 0, bytes = 0;
     double sum = 0; /* keeps the decoding from being optimised away */
-    double t0 = now();
+    double t0 = time_mono_s();
     for (int i = first; i < argc; i++) {
         struct source *s = source_open(argv[i], &e);
         if (!s)
@@ -100,7 +94,7 @@ int main(int argc, char **argv)
     }
     if (l)
         ledger_finish(l);
-    double t = now() - t0;
+    double t = time_mono_s() - t0;
     printf("%llu %llu %llu %llu %.6f\n", lines, accepted, (unsigned long long)decoder_slow_lines(d), bytes,
            t);
     if (l) {

@@ -22,20 +22,14 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/mman.h>
-#include <time.h>
+
+#include "timefmt.h"
 
 #define LINE 64
 #define HUGE_PAGE (2u << 20)
 #define ACCESSES 20000000u
 #define AHEAD 16
 #define PASSES 3
-
-static double now(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
-}
 
 /* xorshift64 (Marsaglia 2003): a fixed, cheap stream of line numbers */
 static uint64_t next(uint64_t *s)
@@ -78,7 +72,7 @@ int main(int argc, char **argv)
     double pre[PASSES], dep[PASSES];
     uint64_t sum = 0;
     for (int k = 0; k < PASSES; k++) {
-        double t0 = now();
+        double t0 = time_mono_s();
         for (uint32_t i = 0; i < ACCESSES; i++) {
             if (i + AHEAD < ACCESSES)
                 __builtin_prefetch(p + (size_t)at[i + AHEAD] * LINE, 1);
@@ -86,7 +80,7 @@ int main(int argc, char **argv)
             sum += x[1];
             x[0]++;
         }
-        pre[k] = (now() - t0) / ACCESSES * 1e9;
+        pre[k] = (time_mono_s() - t0) / ACCESSES * 1e9;
     }
     /* the chase: each visited line holds the number of the next one, over n
      * distinct lines spread evenly through the region and put in one random
@@ -106,10 +100,10 @@ int main(int argc, char **argv)
     for (int k = 0; k < PASSES; k++) {
         uint64_t line = at[0];
         uint32_t steps = n < 4000000 ? n : 4000000;
-        double t0 = now();
+        double t0 = time_mono_s();
         for (uint32_t i = 0; i < steps; i++)
             line = *(volatile uint64_t *)(p + (size_t)line * LINE);
-        dep[k] = (now() - t0) / steps * 1e9;
+        dep[k] = (time_mono_s() - t0) / steps * 1e9;
         sum += line;
     }
     qsort(pre, PASSES, sizeof *pre, cmp);

@@ -20,12 +20,7 @@
 #include <time.h>
 #include <unistd.h>
 
-static double now(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
-}
+#include "timefmt.h"
 
 static double secs(struct timeval tv)
 {
@@ -38,7 +33,7 @@ int main(int argc, char **argv)
         fprintf(stderr, "usage: runstat OUT COMMAND [ARG...]\n");
         return 2;
     }
-    double t0 = now();
+    double t0 = time_mono_s();
     pid_t pid = fork();
     if (pid < 0) {
         perror("runstat: fork");
@@ -55,7 +50,7 @@ int main(int argc, char **argv)
         perror("runstat: wait4");
         return 1;
     }
-    double wall = now() - t0;
+    double wall = time_mono_s() - t0;
     int rc = WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
     FILE *f = fopen(argv[1], "a");
     if (!f) {

@@ -51,4 +51,7 @@ int duration_parse(const char *s, int64_t *us);
 /* Floor division of a time by a positive step (towards −∞). */
 int64_t time_floor(int64_t us, int64_t step);
 
+/* Seconds on the monotonic clock (for elapsed times, never for event times). */
+double time_mono_s(void);
+
 #endif

@@ -72,16 +72,9 @@ struct progress {
     uint64_t lines;
 };
 
-static double mono(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + ts.tv_nsec * 1e-9;
-}
-
 static void progress_show(struct progress *p, const struct source *s, bool end)
 {
-    double now = mono();
+    double now = time_mono_s();
     if (!p->on || (!end && now - p->last < 0.5))
         return;
     p->last = now;
@@ -169,7 +162,7 @@ int cmd_replay(int argc, char **argv)
     char *stdin_only[] = {"-"};
     char **files = optind < argc ? argv + optind : stdin_only;
     int n_files = optind < argc ? argc - optind : 1;
-    pg.start = pg.last = mono();
+    pg.start = pg.last = time_mono_s();
     for (int i = 0; pg.on && i < n_files; i++) {
         struct stat st;
         if (strcmp(files[i], "-") && stat(files[i], &st) == 0)

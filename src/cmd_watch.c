@@ -92,13 +92,6 @@ struct watch {
     double last_log;
 };
 
-static double now_s(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + ts.tv_nsec * 1e-9;
-}
-
 static void part_name(const struct watch *w, int p, char *buf, size_t n)
 {
     snprintf(buf, n, "%s-%d%s", w->topic, p, STATE_SUFFIX);
@@ -227,7 +220,7 @@ static bool drained(const struct watch *w)
 
 static void log_progress(struct watch *w, bool force)
 {
-    double t = now_s();
+    double t = time_mono_s();
     if (w->quiet || (!force && t - w->last_log < 10))
         return;
     int64_t lag = 0;
@@ -349,8 +342,8 @@ static int run(struct watch *w, const char *brokers, const char *group, char **p
     if (se)
         return err_set(&w->err, AB_EINPUT, "subscribe '%s': %s", w->topic, rd_kafka_err2str(se));
 
-    double last_snap = now_s();
-    w->last_log = now_s();
+    double last_snap = time_mono_s();
+    w->last_log = time_mono_s();
     while (!sig_stop_requested() && !w->failed) {
         rd_kafka_message_t *m = rd_kafka_consumer_poll(w->rk, 200);
         if (m) {
@@ -379,8 +372,8 @@ static int run(struct watch *w, const char *brokers, const char *group, char **p
                     w->events++;
                     if (w->max_rate > 0) {
                         if (!w->started)
-                            w->started = now_s();
-                        double ahead = (double)w->events / w->max_rate - (now_s() - w->started);
+                            w->started = time_mono_s();
+                        double ahead = (double)w->events / w->max_rate - (time_mono_s() - w->started);
                         if (ahead > 0.001) {
                             struct timespec ts = {(time_t)ahead, (long)((ahead - (double)(time_t)ahead) * 1e9)};
                             nanosleep(&ts, NULL);
@@ -392,10 +385,10 @@ static int run(struct watch *w, const char *brokers, const char *group, char **p
             if (rc)
                 break;
         }
-        if (now_s() - last_snap >= w->snapshot_s) {
+        if (time_mono_s() - last_snap >= w->snapshot_s) {
             if ((rc = save_all(w)))
                 break;
-            last_snap = now_s();
+            last_snap = time_mono_s();
         }
         log_progress(w, false);
         if (w->drain && drained(w))

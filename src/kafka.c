@@ -20,6 +20,7 @@
 #include "event.h"
 #include "sig.h"
 #include "source.h"
+#include "timefmt.h"
 
 /* ---- properties ---- */
 
@@ -115,13 +116,6 @@ void kafka_conf_set_logging(rd_kafka_conf_t *conf)
 
 /* ---- topic check ---- */
 
-static double now_s(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
-}
-
 /* The entry for topic in md, or NULL. */
 static const rd_kafka_metadata_topic_t *md_find(const struct rd_kafka_metadata *md, const char *topic)
 {
@@ -142,7 +136,7 @@ int kafka_topic_check(rd_kafka_t *rk, const char *topic, int timeout_ms, struct 
 {
     ti->partitions = 0;
     ti->existed = false;
-    double deadline = now_s() + timeout_ms / 1000.0;
+    double deadline = time_mono_s() + timeout_ms / 1000.0;
     const struct rd_kafka_metadata *md = NULL;
     /* All topics: a listing names no topic, so it creates none. */
     rd_kafka_resp_err_t err = rd_kafka_metadata(rk, 1, NULL, &md, timeout_ms);
@@ -168,7 +162,7 @@ int kafka_topic_check(rd_kafka_t *rk, const char *topic, int timeout_ms, struct 
         return err_set(e, AB_EINPUT, "topic '%s': %s", topic, rd_kafka_err2str(rd_kafka_last_error()));
     int rc = AB_OK;
     for (;;) {
-        int left = (int)((deadline - now_s()) * 1000);
+        int left = (int)((deadline - time_mono_s()) * 1000);
         if (left < 100)
             left = 100;
         err = rd_kafka_metadata(rk, 0, rkt, &md, left);
@@ -189,7 +183,7 @@ int kafka_topic_check(rd_kafka_t *rk, const char *topic, int timeout_ms, struct 
             rc = err_set(e, AB_EINPUT, "topic '%s': %s", topic, rd_kafka_err2str(terr));
             break;
         }
-        if (now_s() >= deadline) {
+        if (time_mono_s() >= deadline) {
             rc = err_set(e, AB_EINPUT, "topic '%s': does not exist and the brokers did not create it (%s)",
                          topic, rd_kafka_err2str(terr ? terr : RD_KAFKA_RESP_ERR_LEADER_NOT_AVAILABLE));
             break;
@@ -394,7 +388,7 @@ int kafka_publish_file(struct kafka_publisher *p, const char *path, struct err *
     }
     uint32_t file = p->n_files++;
     if (p->t0 < 0)
-        p->t0 = now_s();
+        p->t0 = time_mono_s();
 
     const char *line;
     size_t len;
@@ -443,8 +437,8 @@ int kafka_publisher_flush(struct kafka_publisher *p, struct err *e)
     while (rd_kafka_outq_len(p->rk) > 0 && !check_fatal(p, &fatal)) {
         if (sig_stop_requested()) {
             if (grace_end < 0)
-                grace_end = now_s() + KAFKA_STOP_GRACE_MS / 1000.0;
-            else if (now_s() >= grace_end)
+                grace_end = time_mono_s() + KAFKA_STOP_GRACE_MS / 1000.0;
+            else if (time_mono_s() >= grace_end)
                 break;
         }
         rd_kafka_flush(p->rk, 100);
@@ -456,7 +450,7 @@ int kafka_publisher_flush(struct kafka_publisher *p, struct err *e)
         rd_kafka_flush(p->rk, 5000);
     }
     if (p->t0 >= 0)
-        p->st.seconds = now_s() - p->t0;
+        p->st.seconds = time_mono_s() - p->t0;
     const struct kafka_publish_stats *st = &p->st;
     if (fatal.code)
         return err_set(e, fatal.code, "%s; %" PRIu64 " of %" PRIu64 " messages not delivered", fatal.msg,

@@ -11,6 +11,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 static int64_t days_from_civil(int64_t y, unsigned m, unsigned d)
 {
@@ -215,6 +216,13 @@ int64_t time_floor(int64_t us, int64_t step)
     if (us % step != 0 && us < 0)
         q--;
     return q * step;
+}
+
+double time_mono_s(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
 void time_format(int64_t us, char *buf, size_t n)
