@@ -133,7 +133,7 @@ size_t ledger_memory(const struct ledger *l);
 
 /* ledger_memory by part, in bytes of capacity (for the benchmark). */
 struct ledger_mem {
-    size_t records;  /* unit records (chunks allocated) */
+    size_t records;  /* unit records (room made for) */
     size_t index;    /* open-addressing index of the records */
     size_t pending;  /* pending-outcome arena */
     size_t ids;      /* event ids: the ring and the table */
@@ -141,6 +141,11 @@ struct ledger_mem {
     size_t n_records;/* unit records in use */
 };
 void ledger_memory_parts(const struct ledger *l, struct ledger_mem *m);
+
+/* For tests: makes the next growth of the unit records, and of the pending
+ * blocks, move them to new address space, as growth past their reserves
+ * (4M records of 64 bytes, 256 MiB of blocks) does on a large log. */
+void ledger_trim_reserves(struct ledger *l);
 
 /* Calls fn for every unit counted in the tallies (exposed, one arm), in table
  * order, with its key, arm and the per-metric variables (layout offsets). */

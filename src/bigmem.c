@@ -62,14 +62,18 @@ void *big_alloc(size_t bytes, bool huge)
 #define RESERVE_MIN ((size_t)256 << 20)
 #define RESERVE_FACTOR 64
 
-/* Makes [p, p + len) of a reserve readable and writable, on huge pages where
- * the kernel allows. */
-static int make_usable(char *p, size_t len)
+/* Makes [from, to) of a reserve at p readable and writable, on huge pages
+ * from huge_from where the kernel allows. */
+static int make_usable(char *p, size_t from, size_t to, size_t huge_from)
 {
-    if (mprotect(p, len, PROT_READ | PROT_WRITE))
+    if (mprotect(p + from, to - from, PROT_READ | PROT_WRITE))
         return -1;
 #ifdef MADV_HUGEPAGE
-    madvise(p, len, MADV_HUGEPAGE);
+    size_t h = from > huge_from ? from : huge_from;
+    if (h < to)
+        madvise(p + h, to - h, MADV_HUGEPAGE);
+#else
+    (void)huge_from;
 #endif
     return 0;
 }
@@ -82,7 +86,7 @@ int big_region_grow(struct big_region *g, size_t bytes, bool keep)
     if (n <= g->used)
         return 0;
     if (n <= g->reserved) {
-        if (make_usable(g->p + g->used, n - g->used))
+        if (make_usable(g->p, g->used, n, g->huge_from))
             return -1;
         g->used = n;
         return 0;
@@ -94,7 +98,7 @@ int big_region_grow(struct big_region *g, size_t bytes, bool keep)
         res = res / 4 > n ? res / 4 : n;
     if (!p)
         return -1;
-    if (make_usable(p, n)) {
+    if (make_usable(p, 0, n, g->huge_from)) {
         munmap(p, res);
         return -1;
     }
@@ -109,11 +113,21 @@ int big_region_grow(struct big_region *g, size_t bytes, bool keep)
     return 0;
 }
 
+void big_region_trim(struct big_region *g)
+{
+    if (g->p && g->reserved > g->used) {
+        munmap(g->p + g->used, g->reserved - g->used);
+        g->reserved = g->used;
+    }
+}
+
 void big_region_free(struct big_region *g)
 {
     if (g->p)
         munmap(g->p, g->reserved);
+    size_t huge_from = g->huge_from;
     memset(g, 0, sizeof *g);
+    g->huge_from = huge_from;
 }
 
 void big_free(void *p, size_t bytes)

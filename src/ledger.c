@@ -7,8 +7,9 @@
  *                 then its 8-byte id link (struct idlink), stored 64 bytes
  *                 apart (a record of up to 56 bytes takes one cache line with
  *                 its link, not two; a larger one is stored rec_size + 8
- *                 apart); records live in fixed-size chunks, so growth never
- *                 copies;
+ *                 apart); records sit one after another in a bigmem region,
+ *                 grown in place 65,536 at a time (REC_STEP), so record i
+ *                 is at one multiplication from the region's start;
  *   index         open addressing (linear probing) of 8-byte entries: the
  *                 record number and the high half of the unit's key (a probe
  *                 reads a record only when the key probably matches); load
@@ -28,13 +29,14 @@
  *                 it may hold one within the horizon.
  * The index, the id table and the ring, once 4 MiB, double in place (a
  * bigmem region: only the new half is fresh memory).
- * Nothing is allocated per event in steady state: chunks, the index, the
- * pending blocks, the ring and the id table grow geometrically and are
+ * Nothing is allocated per event in steady state: the records, the index,
+ * the pending blocks, the ring and the id table grow in steps and are
  * reused (the ring's entries once expired; the id table drops expired ids in
  * place, and reuses their slots). Sweeps settle
  * units in batches whose pending lists are walked side by side (settle).
- * Tables and chunks of 4 MiB and more are mapped on huge pages where the
- * kernel allows (bigmem.h).
+ * Tables of 4 MiB and more, and the records and pending blocks beyond their
+ * first 4 MiB, are mapped on huge pages where the kernel allows (bigmem.h);
+ * a small ledger (a watch keeps one per partition) stays on 4 KiB pages.
  *
  * Lookahead: with millions of units the index, the records and the id table
  * are far bigger than the caches, and each event would wait for several
@@ -62,8 +64,9 @@
 #define F_FINAL 0x02 /* exposure can no longer move: pending list released */
 #define F_DEAD 0x04  /* to be removed at the next compaction */
 
-#define CHUNK_SHIFT 16
-#define CHUNK_RECS (1u << CHUNK_SHIFT)
+#define REC_STEP 65536u /* records the region grows by */
+/* records and pending blocks use huge pages from here on (see the top) */
+#define HUGE_FROM ((size_t)4 << 20)
 
 struct urec {
     uint64_t key;  /* SipHash of the unit id */
@@ -96,11 +99,9 @@ _Static_assert(sizeof(struct pblk) == 64, "a pending block is one cache line");
 #define PB_DUP 0xFF
 #define DUP_MARK UINT32_MAX
 
-/* Blocks are numbered from 1 (0 ends a list); chunk 0 holds blocks
- * [0, PB0), chunk k ≥ 1 holds [PB0·2^(k−1), PB0·2^k): chunks never move. */
-#define PB0_SHIFT 10
-#define PB0 (UINT32_C(1) << PB0_SHIFT)
-#define PB_CHUNKS (32 - PB0_SHIFT + 1)
+/* Blocks are numbered from 1 (0 ends a list), block i at i · 64 bytes into
+ * a bigmem region that doubles (in place while its reserve lasts; when it
+ * moves, no block address may be held across pb_alloc). */
 
 struct idslot {
     uint64_t h; /* id hash, 0 = empty */
@@ -161,18 +162,17 @@ _Static_assert(LOOKAHEAD_PENDING + PENDING_AHEAD < LOOKAHEAD, "every step comes 
 struct ledger {
     const struct layout *lay;
     const struct config *cfg;
-    /* unit records */
-    char **chunks;
-    size_t n_chunks;
+    /* unit records: record i at recs.p + i · stride */
+    struct big_region recs;
     size_t slot;   /* bytes of a record in memory: rec_size, then its struct idlink */
     size_t stride; /* bytes between records: slot, or a whole line when it fits one */
-    uint32_t n_recs;
+    uint32_t n_recs, rec_cap;
     uint64_t *index; /* IX_ENTRY(key, record number + 1); 0 = empty */
     size_t index_cap;
     struct big_region index_region; /* holds the index once it is large (TABLE_REGION_MIN) */
-    /* pending outcomes */
-    struct pblk *pchunk[PB_CHUNKS];
-    int n_pchunks;
+    /* pending outcomes: block i at pbs.p + i · 64 */
+    struct big_region pbs;
+    uint32_t pb_cap;  /* blocks the region holds */
     uint32_t pb_top;  /* blocks below it have been used (bump allocation) */
     uint32_t pb_free; /* free list of released blocks, linked by next */
     uint32_t pend_used, pend_after_sweep; /* entries */
@@ -314,7 +314,15 @@ void layout_vector(const struct layout *lay, int m, const double *values, double
 
 static struct urec *rec_at(const struct ledger *l, uint32_t i)
 {
-    return (struct urec *)(l->chunks[i >> CHUNK_SHIFT] + (size_t)(i & (CHUNK_RECS - 1)) * l->stride);
+    return (struct urec *)(l->recs.p + (size_t)i * l->stride);
+}
+
+/* Forgets the record queued events found at their record step: the records
+ * moved (a sweep's compaction, or the region's move to a larger reserve). */
+static void forget_guesses(struct ledger *l)
+{
+    for (int k = 0; k < LOOKAHEAD; k++)
+        l->ring[k].rec = NULL;
 }
 
 /* An index entry: the record number + 1 in the low half, the high half of the
@@ -400,14 +408,15 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
     if ((l->n_recs + 1) * 10 > l->index_cap * 7 && index_grow(l))
         return NULL;
     uint32_t i = l->n_recs;
-    if ((i >> CHUNK_SHIFT) >= l->n_chunks) {
-        char **nc = realloc(l->chunks, (l->n_chunks + 1) * sizeof *nc);
-        if (!nc)
+    if (i == l->rec_cap) {
+        if (l->rec_cap > UINT32_MAX - 1 - REC_STEP)
+            return NULL; /* record numbers + 1 are 32-bit (index entries) */
+        char *was = l->recs.p;
+        if (big_region_grow(&l->recs, ((size_t)l->rec_cap + REC_STEP) * l->stride, true))
             return NULL;
-        l->chunks = nc;
-        if (!(nc[l->n_chunks] = big_alloc(CHUNK_RECS * l->stride, l->n_chunks > 0)))
-            return NULL;
-        l->n_chunks++;
+        l->rec_cap += REC_STEP;
+        if (was && l->recs.p != was) /* moved: every record pointer held is stale */
+            forget_guesses(l);
     }
     struct urec *r = rec_at(l, i);
     memset(r, 0, l->slot);
@@ -421,17 +430,9 @@ static struct urec *unit_find(struct ledger *l, uint64_t key, bool create)
 
 /* ---------------------------------------------------------------- pending */
 
-/* The first block of chunk k; for k = the number of chunks, the capacity. */
-static size_t pb_first(int k)
-{
-    return k ? (size_t)PB0 << (k - 1) : 0;
-}
-
 static struct pblk *pb(const struct ledger *l, uint32_t i)
 {
-    uint32_t q = i >> PB0_SHIFT;
-    int k = q ? 32 - __builtin_clz(q) : 0;
-    return &l->pchunk[k][i - pb_first(k)];
+    return (struct pblk *)l->pbs.p + i;
 }
 
 /* A free block (n = 0, next = 0), 0 when out of memory. Released blocks are
@@ -448,12 +449,11 @@ static uint32_t pb_alloc(struct ledger *l)
             l->pb_top = 1; /* block 0 is the null link */
         if (l->pb_top == UINT32_MAX)
             return 0; /* block numbers are 32-bit */
-        if (l->pb_top >= pb_first(l->n_pchunks)) {
-            int k = l->n_pchunks;
-            if (k == PB_CHUNKS ||
-                !(l->pchunk[k] = big_alloc((pb_first(k + 1) - pb_first(k)) * sizeof(struct pblk), true)))
+        if (l->pb_top >= l->pb_cap) {
+            if (big_region_grow(&l->pbs, l->pbs.used ? 2 * l->pbs.used : sizeof(struct pblk), true))
                 return 0;
-            l->n_pchunks++;
+            size_t cap = l->pbs.used / sizeof(struct pblk);
+            l->pb_cap = cap < UINT32_MAX ? (uint32_t)cap : UINT32_MAX;
         }
         i = l->pb_top++;
     }
@@ -471,7 +471,7 @@ static void pb_release(struct ledger *l, uint32_t i)
 
 static size_t pb_bytes(const struct ledger *l)
 {
-    return pb_first(l->n_pchunks) * sizeof(struct pblk);
+    return l->pbs.used;
 }
 
 /* A unit not yet exposed has all its values at zero (they are computed from
@@ -523,18 +523,17 @@ static int pend_push(struct ledger *l, struct urec *r, int64_t t, double v, uint
  * block is *tail (0: the list is empty; updated); -1 when out of memory. */
 static int pend_append(struct ledger *l, struct urec *r, uint32_t *tail, int64_t t, double v, uint8_t ev)
 {
-    struct pblk *b = *tail ? pb(l, *tail) : NULL;
-    if (!b || b->n == PB_N) {
-        uint32_t i = pb_alloc(l);
+    if (!*tail || pb(l, *tail)->n == PB_N) {
+        uint32_t i = pb_alloc(l); /* may move the blocks */
         if (!i)
             return -1;
-        if (b)
-            b->next = i;
+        if (*tail)
+            pb(l, *tail)->next = i;
         else
             r->pend = i;
         *tail = i;
-        b = pb(l, i);
     }
+    struct pblk *b = pb(l, *tail);
     memmove(b->t + 1, b->t, b->n * sizeof b->t[0]);
     memmove(b->v + 1, b->v, b->n * sizeof b->v[0]);
     memmove(b->ev + 1, b->ev, b->n);
@@ -1358,8 +1357,7 @@ static void sweep(struct ledger *l)
         memset(l->index, 0, l->index_cap * sizeof *l->index);
         for (uint32_t i = 0; i < l->n_recs; i++)
             index_put(l->index, l->index_cap, rec_at(l, i)->key, i);
-        for (int k = 0; k < LOOKAHEAD; k++) /* queued events' records may have moved */
-            l->ring[k].rec = NULL;
+        forget_guesses(l); /* queued events' records may have moved */
     }
     l->last_sweep = wm;
     l->pend_after_sweep = l->pend_used;
@@ -1711,6 +1709,7 @@ struct ledger *ledger_new(const struct layout *lay)
     l->max_time = INT64_MIN;
     l->last_sweep = INT64_MIN;
     l->ir_tail = l->ir_next = 1;
+    l->recs.huge_from = l->pbs.huge_from = HUGE_FROM;
     l->ids_max_t = INT64_MIN;
     size_t nm = lay->cfg->n_metrics ? (size_t)lay->cfg->n_metrics : 1;
     l->mom = calloc(nm * CONFIG_MAX_ARMS, sizeof *l->mom);
@@ -1734,12 +1733,9 @@ void ledger_free(struct ledger *l)
     if (!l)
         return;
     rebucket_ctx_free(l->md);
-    for (size_t i = 0; i < l->n_chunks; i++)
-        big_free(l->chunks[i], CHUNK_RECS * l->stride);
-    free(l->chunks);
+    big_region_free(&l->recs);
     table_free(l->index, l->index_cap * sizeof *l->index, &l->index_region);
-    for (int k = 0; k < l->n_pchunks; k++)
-        big_free(l->pchunk[k], (pb_first(k + 1) - pb_first(k)) * sizeof(struct pblk));
+    big_region_free(&l->pbs);
     table_free(l->ir, l->ir_cap * sizeof *l->ir, &l->ir_region);
     table_free(l->ids, l->ids_cap * sizeof *l->ids, &l->ids_region);
     free(l->multi);
@@ -1808,12 +1804,18 @@ size_t ledger_memory(const struct ledger *l)
 void ledger_memory_parts(const struct ledger *l, struct ledger_mem *m)
 {
     sync(l);
-    m->records = l->n_chunks * CHUNK_RECS * l->stride;
+    m->records = (size_t)l->rec_cap * l->stride;
     m->index = l->index_cap * sizeof *l->index;
     m->pending = pb_bytes(l);
     m->ids = l->ids_cap * sizeof *l->ids + l->ir_cap * sizeof *l->ir;
     m->other = l->multi_cap * sizeof *l->multi + l->days_cap * sizeof *l->days + LOOKAHEAD * sizeof *l->ring;
     m->n_records = l->n_recs;
+}
+
+void ledger_trim_reserves(struct ledger *l)
+{
+    big_region_trim(&l->recs);
+    big_region_trim(&l->pbs);
 }
 
 void ledger_each_unit(const struct ledger *l,
@@ -2136,7 +2138,7 @@ int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
         d->pend = 0;
         if (s->seg && !(d->seg = seg_find(dst, src->segs[s->seg - 1].name, true)))
             return err_set(e, AB_EINPUT, "out of memory");
-        uint32_t *link = &d->pend;
+        uint32_t last = 0; /* the block copied last (pb_alloc may move the blocks) */
         for (uint32_t k = s->pend; k; k = pb(src, k)->next) {
             uint32_t n = pb_alloc(dst);
             if (!n)
@@ -2144,8 +2146,11 @@ int ledger_absorb(struct ledger *dst, const struct ledger *src, struct err *e)
             *pb(dst, n) = *pb(src, k); /* block by block: the same order */
             pb(dst, n)->next = 0;
             dst->pend_used += pb(src, k)->n;
-            *link = n;
-            link = &pb(dst, n)->next;
+            if (last)
+                pb(dst, last)->next = n;
+            else
+                d->pend = n;
+            last = n;
         }
     }
     counters_add(&dst->cnt, &src->cnt);

@@ -103,6 +103,28 @@ static void test_bigmem__region_moves_past_its_reserve(void **state)
     }
 }
 
+/* A trimmed region (its reserve given back) moves at its next growth,
+ * contents kept; huge_from survives a free (set once by the owner). */
+static void test_bigmem__trimmed_region_moves_at_next_growth(void **state)
+{
+    (void)state;
+    struct big_region g = {.huge_from = 4 * MiB};
+    assert_int_equal(big_region_grow(&g, 2 * MiB, true), 0);
+    mark((unsigned char *)g.p, 0, 2 * MiB);
+    big_region_trim(&g);
+    assert_int_equal(g.reserved, g.used);
+    big_region_trim(&g); /* twice is harmless */
+    char *first = g.p;
+    assert_int_equal(big_region_grow(&g, 6 * MiB, true), 0);
+    assert_ptr_not_equal(g.p, first);
+    check((unsigned char *)g.p, 0, 2 * MiB);
+    for (size_t o = 2 * MiB; o < 6 * MiB; o += 4096)
+        assert_int_equal(((unsigned char *)g.p)[o], 0);
+    assert_true(g.reserved >= 64 * g.used); /* a full reserve again */
+    big_region_free(&g);
+    assert_int_equal(g.huge_from, 4 * MiB);
+}
+
 /* A size whose reserve would overflow is refused, and the region stays as it was. */
 static void test_bigmem__region_refuses_impossible_sizes(void **state)
 {
@@ -124,6 +146,7 @@ int main(void)
         cmocka_unit_test(test_bigmem__blocks_are_zeroed),
         cmocka_unit_test(test_bigmem__region_grows_in_place_keeping_contents),
         cmocka_unit_test(test_bigmem__region_moves_past_its_reserve),
+        cmocka_unit_test(test_bigmem__trimmed_region_moves_at_next_growth),
         cmocka_unit_test(test_bigmem__region_refuses_impossible_sizes),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

@@ -368,6 +368,58 @@ static void test_ledger__large_tables_keep_every_entry(void **state)
     ledger_free(copy);
 }
 
+/* The unit records and the pending blocks move when they grow past their
+ * reserves (ledger.c), which takes millions of units; ledger_trim_reserves
+ * makes their next growth move at once. Two ledgers take the same 70,000
+ * units: every 10 ms (no sweep runs) a new unit's spend of 2, with an id,
+ * and the assignment of the unit whose spend came 20 steps (200 ms) before.
+ * The second ledger's reserves are trimmed after 1,000 units, so its records
+ * move at the 65,537th, while the assignments queued in the lookahead hold
+ * guesses of their units' records, stale once moved (without forget_guesses
+ * the test reads unmapped memory); its pending blocks move at the 32,768th
+ * (each spend waits in a block of its own until its unit is exposed). Both
+ * ledgers must end with every count and tally the same, to the bit. Worked
+ * by hand: each spend falls 199 ms before its unit's exposure, inside the
+ * 7-day pre-period, so every unit's spend is 0 and its covariate 2: mean
+ * spend 0 and mean covariate 2 in both arms, 35,000 units each. */
+static void test_ledger__records_and_blocks_survive_moves(void **state)
+{
+    struct fx *f = *state;
+    enum { N = 70000, LAG = 20 };
+    int64_t t0;
+    assert_int_equal(time_parse_rfc3339("2026-11-03T00:00:00Z", 20, &t0), 0);
+    struct ledger *moved = ledger_new(&f->lay);
+    assert_non_null(moved);
+    struct ledger *both[2] = {f->l, moved};
+    for (int i = 0; i < N + LAG; i++) {
+        if (i == 1000)
+            ledger_trim_reserves(moved);
+        for (int k = 0; k < 2; k++) {
+            int64_t t = t0 + (int64_t)i * 10000;
+            if (i < N)
+                spend_n(f, both[k], i, t);
+            if (i >= LAG)
+                assign_n(f, both[k], "w", "a", i - LAG, t + 1000);
+        }
+    }
+    for (int k = 0; k < 2; k++) {
+        ledger_finish(both[k]);
+        assert_int_equal(ledger_n_records(both[k]), N);
+        for (int a = CTL; a <= TRT; a++) {
+            assert_int_equal(ledger_units(both[k], a), N / 2);
+            assert_rel_close(ledger_moments(both[k], M_SPEND, a)->mean[0], 0, 0);
+            assert_rel_close(ledger_moments(both[k], M_SPEND, a)->mean[1], 2, 0);
+        }
+        assert_int_equal(ledger_counters(both[k])->duplicates, 0);
+        assert_int_equal(ledger_counters(both[k])->orphan_outcomes, 0);
+    }
+    assert_memory_equal(ledger_counters(f->l), ledger_counters(moved), sizeof(struct counters));
+    for (int m = 0; m < f->cfg.n_metrics; m++)
+        for (int a = CTL; a <= TRT; a++)
+            assert_memory_equal(ledger_moments(f->l, m, a), ledger_moments(moved, m, a), sizeof(struct moments));
+    ledger_free(moved);
+}
+
 /* Rule: ids are remembered for the dedup horizon of event time (24 h here),
  * counted back from the latest event time, and no longer. Worked by hand:
  * o1 at 11:00 is repeated at 10:59 next day (the latest time then 10:59,
@@ -722,6 +774,7 @@ int main(void)
         cmocka_unit_test_setup_teardown(test_ledger__id_remembered_again_after_expiry, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__busy_unit_keeps_every_id, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__large_tables_keep_every_entry, setup, teardown),
+        cmocka_unit_test_setup_teardown(test_ledger__records_and_blocks_survive_moves, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__order_within_lateness, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__orphans_and_ignored, setup, teardown),
         cmocka_unit_test_setup_teardown(test_ledger__tallies_match_two_pass, setup, teardown),
