@@ -41,11 +41,11 @@ struct big_region {
 };
 
 /* Makes the region at least `bytes` long, on huge pages (from huge_from)
- * where the kernel allows; bytes beyond the old length read as zero. The contents stay when
- * `keep` (copied only when the reserve runs out and the region moves);
- * without it, a region that moves reads as zero throughout, and one that
- * does not keeps its old bytes as they were. -1 when out of memory or
- * address space; the region is then unchanged. */
+ * where the kernel allows; bytes beyond the old length read as zero. The
+ * contents stay when `keep` (copied only when the reserve runs out and the
+ * region moves); without it, a region that moves reads as zero throughout,
+ * and one that does not keeps its old bytes as they were. -1 when out of
+ * memory or address space; the region is then unchanged. */
 int big_region_grow(struct big_region *g, size_t bytes, bool keep);
 /* Gives back the address space reserved beyond the region's length, so that
  * its next growth moves it (tests use it to reach, with little memory, what
