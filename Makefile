@@ -90,6 +90,7 @@ BENCH_BIN := $(addprefix $(BUILD)/bench/,parse_floor runstat bounds_time consume
 bench: $(BUILD)/abtally $(BENCH_BIN)
 	$(Q)sh bench/run.sh $(BUILD)
 
+$(BUILD)/bench/parse_floor: tests/bytebuf.h
 $(BUILD)/bench/%: bench/%.c $(BUILD)/libcore.a | $(DEPS_OK)
 	@mkdir -p $(dir $@)
 	@$(if $(Q),echo "  BENCH   $<")

@@ -36,6 +36,7 @@
 #include "ledger.h"
 #include "source.h"
 #include "timefmt.h"
+#include "../tests/bytebuf.h"
 
 static int fail(const char *what, const char *msg)
 {
@@ -54,41 +55,19 @@ struct held {
 };
 #define NONE UINT32_MAX
 
-struct store {
-    char *p;
-    size_t n, cap;
-};
-
-static int store_put(struct store *st, const void *p, size_t n)
-{
-    if (st->n + n > st->cap) {
-        size_t cap = st->cap ? st->cap : (size_t)1 << 24;
-        while (cap < st->n + n)
-            cap *= 2;
-        char *q = realloc(st->p, cap);
-        if (!q)
-            return -1;
-        st->p = q;
-        st->cap = cap;
-    }
-    memcpy(st->p + st->n, p, n);
-    st->n += n;
-    return 0;
-}
-
-static int store_str(struct store *st, struct str s)
+static int store_str(struct byte_buf *st, struct str s)
 {
     uint32_t n = s.p ? s.n : NONE;
-    return store_put(st, &n, sizeof n) || (s.p && store_put(st, s.p, s.n));
+    return byte_buf_write(st, &n, sizeof n) || (s.p && byte_buf_write(st, s.p, s.n));
 }
 
-static int store_event(struct store *st, enum reject r, const struct event *ev)
+static int store_event(struct byte_buf *st, enum reject r, const struct event *ev)
 {
     struct held h = {0, 0, 0, (uint8_t)r};
     if (r != REJ_NONE)
-        return store_put(st, &h, sizeof h);
+        return byte_buf_write(st, &h, sizeof h);
     h = (struct held){ev->time_us, ev->value, (uint8_t)ev->kind, (uint8_t)ev->n_attrs};
-    if (store_put(st, &h, sizeof h) || store_str(st, ev->unit) || store_str(st, ev->id) ||
+    if (byte_buf_write(st, &h, sizeof h) || store_str(st, ev->unit) || store_str(st, ev->id) ||
         store_str(st, ev->exp) || store_str(st, ev->arm) || store_str(st, ev->metric))
         return -1;
     for (int i = 0; i < ev->n_attrs; i++)
@@ -111,7 +90,7 @@ static struct str take_str(const char **at)
 
 /* Applies the stored events to l, in order (never inlined, so that a
  * profiler can count it alone: valgrind --toggle-collect=apply_stored). */
-static __attribute__((noinline)) int apply_stored(struct ledger *l, const struct store *st)
+static __attribute__((noinline)) int apply_stored(struct ledger *l, const struct byte_buf *st)
 {
     for (const char *at = st->p, *end = st->p + st->n; at < end;) {
         struct held h;
@@ -155,7 +134,7 @@ int main(int argc, char **argv)
         fprintf(stderr, "usage: parse_floor [--ledger CONFIG [--decoded-first]] FILE...\n");
         return 2;
     }
-    struct store st = {NULL, 0, 0};
+    struct byte_buf st = {NULL, 0, 0};
     struct err e;
     err_clear(&e);
     struct config cfg;

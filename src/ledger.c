@@ -172,7 +172,6 @@ struct ledger {
     struct big_region index_region; /* holds the index once it is large (TABLE_REGION_MIN) */
     /* pending outcomes: block i at pbs.p + i · 64 */
     struct big_region pbs;
-    uint32_t pb_cap;  /* blocks the region holds */
     uint32_t pb_top;  /* blocks below it have been used (bump allocation) */
     uint32_t pb_free; /* free list of released blocks, linked by next */
     uint32_t pend_used, pend_after_sweep; /* entries */
@@ -449,12 +448,9 @@ static uint32_t pb_alloc(struct ledger *l)
             l->pb_top = 1; /* block 0 is the null link */
         if (l->pb_top == UINT32_MAX)
             return 0; /* block numbers are 32-bit */
-        if (l->pb_top >= l->pb_cap) {
-            if (big_region_grow(&l->pbs, l->pbs.used ? 2 * l->pbs.used : sizeof(struct pblk), true))
-                return 0;
-            size_t cap = l->pbs.used / sizeof(struct pblk);
-            l->pb_cap = cap < UINT32_MAX ? (uint32_t)cap : UINT32_MAX;
-        }
+        if ((size_t)l->pb_top * sizeof(struct pblk) >= l->pbs.used &&
+            big_region_grow(&l->pbs, l->pbs.used ? 2 * l->pbs.used : sizeof(struct pblk), true))
+            return 0;
         i = l->pb_top++;
     }
     struct pblk *b = pb(l, i);

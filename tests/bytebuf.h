@@ -1,8 +1,8 @@
 /*
- * bytebuf.h — a growable byte buffer for the tests and the fuzz harnesses:
- * byte_buf_write has the shape of ledger_write_fn, so a ledger can be saved
- * into memory, and the bytes are always followed by a 0, so text in it reads
- * as a string. The owner frees .p.
+ * bytebuf.h — a growable byte buffer for the tests, the fuzz harnesses and
+ * bench/parse_floor: byte_buf_write has the shape of ledger_write_fn, so a
+ * ledger can be saved into memory, and the bytes are always followed by a 0,
+ * so text in it reads as a string. The owner frees .p.
  */
 #ifndef ABTALLY_TEST_BYTEBUF_H
 #define ABTALLY_TEST_BYTEBUF_H
