@@ -9,7 +9,6 @@
  */
 #include <stdio.h>
 #include <stdlib.h>
-#include <time.h>
 
 #include "err.h"
 #include "seq.h"

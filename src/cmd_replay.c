@@ -3,7 +3,6 @@
  * final summary out (JSON lines on stdout).
  */
 #include <getopt.h>
-#include <time.h>
 #include <unistd.h>
 #include <stdio.h>
 #include <stdlib.h>
